@@ -104,3 +104,6 @@ class RejectReason(StrEnum):
     NAME_REJECTED = "name-rejected"
     CELL_TOO_LARGE = "cell-too-large"
     BAD_TEMPERATURE = "bad-temperature"
+    UNKNOWN_CATEGORY = "unknown-category"
+    NAME_NEEDS_REVIEW = "name-needs-review"
+    DUPLICATE_STATISTIC = "duplicate-statistic"
