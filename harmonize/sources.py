@@ -1,0 +1,365 @@
+"""Source adapters: read a declared table in batches and reshape it into trait cells.
+
+A reader is chosen from a dispatch table by the mapping's format; every reader yields pandas
+frames of text columns (the raw cells exactly as written), so later stages can report the original
+value. Wide tables are melted to one row per trait cell, long tables are taken as they are. This
+module does not parse numbers, match names or convert units: it only reads and reshapes.
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import hashlib
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+
+from harmonize.errors import ConfigError, SourceNotFoundError, SourceReadError
+from harmonize.project import Limits, Mapping
+
+CONTEXT_COLUMNS = {
+    "taxon": "taxon_verbatim",
+    "individual": "individual_id",
+    "sex": "sex",
+    "life_stage": "life_stage",
+    "site": "site",
+    "date": "date",
+    "sample_size": "n_raw",
+}
+CELL_COLUMNS = (
+    "source_row", "column", "original_name", "raw_value", "raw_unit", "statistic", "n_raw",
+    "taxon_verbatim", "individual_id", "sex", "life_stage", "site", "date", "temperature_raw",
+)  # fmt: skip
+
+
+@dataclass(frozen=True)
+class CellBatch:
+    """Trait cells of one batch of source rows (one row per cell, columns CELL_COLUMNS)."""
+
+    cells: pd.DataFrame
+    rows: int  # source rows in this batch
+
+
+def file_sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+# ---------------------------------------------------------------- readers
+
+
+def _delimiter(mapping: Mapping) -> str:
+    if mapping.read.delimiter:
+        return mapping.read.delimiter
+    return "\t" if mapping.format == "tsv" else ","
+
+
+def _encoding(mapping: Mapping) -> str:
+    encoding = mapping.read.encoding.lower().replace("_", "-")
+    return "utf-8-sig" if encoding in ("utf-8", "utf8") else mapping.read.encoding
+
+
+def _delimited_header(mapping: Mapping) -> list[str]:
+    try:
+        with open(mapping.path, encoding=_encoding(mapping), newline="") as handle:
+            reader = csv.reader(handle, delimiter=_delimiter(mapping))
+            header = next(reader, None)
+    except UnicodeDecodeError as error:
+        raise SourceReadError(
+            f"header is not valid {mapping.read.encoding} text",
+            file=str(mapping.path),
+            row=0,
+            hint=f"declare the file's encoding in the mapping's read options ({error.reason})",
+        ) from None
+    if not header:
+        raise SourceReadError("the file is empty (no header row)", file=str(mapping.path))
+    return [h.strip() for h in header]
+
+
+def _parquet_header(mapping: Mapping) -> list[str]:
+    try:
+        return list(pq.ParquetFile(mapping.path).schema_arrow.names)
+    except (pa.ArrowInvalid, OSError) as error:
+        raise SourceReadError(
+            f"not a readable Parquet file ({error})", file=str(mapping.path)
+        ) from None
+
+
+def _locate_bad_row(mapping: Mapping, width: int) -> int | None:
+    """Only on the error path: find the first data row whose field count differs from the header."""
+    try:
+        with open(
+            mapping.path, encoding=_encoding(mapping), newline="", errors="replace"
+        ) as handle:
+            for number, fields in enumerate(csv.reader(handle, delimiter=_delimiter(mapping))):
+                if number and len(fields) != width and fields:
+                    return number
+    except csv.Error:
+        return None
+    return None
+
+
+def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
+    encoding = _encoding(mapping)
+    read_options = pacsv.ReadOptions(
+        column_names=header,
+        skip_rows=1,
+        encoding="utf8" if encoding == "utf-8-sig" else encoding,
+        block_size=1 << 22,
+    )
+    parse_options = pacsv.ParseOptions(delimiter=_delimiter(mapping), newlines_in_values=True)
+    convert_options = pacsv.ConvertOptions(
+        column_types={name: pa.string() for name in header},
+        strings_can_be_null=False,
+        quoted_strings_can_be_null=False,
+    )
+    try:
+        reader = pacsv.open_csv(
+            mapping.path,
+            read_options=read_options,
+            parse_options=parse_options,
+            convert_options=convert_options,
+        )
+        pending: list[pa.RecordBatch] = []
+        pending_rows = 0
+        for batch in reader:
+            pending.append(batch)
+            pending_rows += batch.num_rows
+            if pending_rows >= limits.batch_rows:
+                yield pa.Table.from_batches(pending).to_pandas()
+                pending, pending_rows = [], 0
+        if pending:
+            yield pa.Table.from_batches(pending).to_pandas()
+    except pa.ArrowInvalid as error:
+        text = str(error)
+        if "Expected" in text and "columns" in text:
+            row = _locate_bad_row(mapping, len(header))
+            raise SourceReadError(
+                f"row has a different number of fields than the header ({len(header)})",
+                file=str(mapping.path),
+                row=row,
+                hint=f"check quoting and the declared delimiter {_delimiter(mapping)!r}",
+            ) from None
+        if "UTF8" in text or "utf8" in text or "decode" in text.lower():
+            raise SourceReadError(
+                f"text is not valid {mapping.read.encoding}",
+                file=str(mapping.path),
+                hint="declare the file's encoding in the mapping's read options, e.g. encoding: latin-1",
+            ) from None
+        raise SourceReadError(
+            f"cannot read as {mapping.format} ({text.splitlines()[0]})", file=str(mapping.path)
+        ) from None
+
+
+def _as_text(array: pa.ChunkedArray) -> pa.ChunkedArray:
+    if pa.types.is_dictionary(array.type):
+        array = array.cast(array.type.value_type)
+    if pa.types.is_string(array.type) or pa.types.is_large_string(array.type):
+        return array
+    return pc.cast(array, pa.string())
+
+
+def _read_parquet(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
+    try:
+        parquet = pq.ParquetFile(mapping.path, pre_buffer=False, buffer_size=1 << 20)
+        for batch in parquet.iter_batches(batch_size=limits.batch_rows):
+            table = pa.Table.from_batches([batch])
+            columns = {name: _as_text(table.column(name)) for name in table.column_names}
+            frame = pa.table(columns).to_pandas()
+            yield frame.fillna("")
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as error:
+        raise SourceReadError(f"cannot read Parquet ({error})", file=str(mapping.path)) from None
+
+
+Reader = Callable[[Mapping, list[str], Limits], Iterator[pd.DataFrame]]
+READERS: dict[str, tuple[Callable[[Mapping], list[str]], Reader]] = {
+    "csv": (_delimited_header, _read_delimited),
+    "tsv": (_delimited_header, _read_delimited),
+    "parquet": (_parquet_header, _read_parquet),
+}
+
+
+def read_header(mapping: Mapping) -> list[str]:
+    if not mapping.path.is_file():
+        raise SourceNotFoundError(
+            "source file not found",
+            file=str(mapping.path),
+            hint=f"path declared in {mapping.mapping_file.name}",
+        )
+    try:
+        header_reader, _ = READERS[mapping.format]
+    except KeyError:
+        raise ConfigError(
+            f"no reader for format '{mapping.format}'", hint=f"known formats: {', '.join(READERS)}"
+        ) from None
+    header = header_reader(mapping)
+    seen: set[str] = set()
+    for name in header:
+        if name in seen:
+            raise SourceReadError(
+                f"column '{name}' appears twice in the header", file=str(mapping.path), column=name
+            )
+        seen.add(name)
+    return header
+
+
+# ---------------------------------------------------------------- declared columns
+
+
+def _require(mapping: Mapping, header: list[str], column: str, key: str) -> None:
+    if column not in header:
+        close = difflib.get_close_matches(column, header, n=1)
+        raise ConfigError(
+            f"declared column '{column}' ({key}) is not in {mapping.path.name}",
+            file=str(mapping.mapping_file),
+            column=column,
+            hint=f"did you mean '{close[0]}'?"
+            if close
+            else f"columns are: {', '.join(header[:12])}",
+        )
+
+
+def trait_columns(mapping: Mapping, header: list[str]) -> list[str]:
+    """Wide layout: the columns holding trait values (declared ones and every unclaimed column).
+
+    Unclaimed columns are treated as trait columns matched by name so that no data is silently
+    dropped; a mapping lists columns that are neither trait nor context under `ignore`.
+    """
+    context = set(mapping.context.values())
+    if mapping.temperature and mapping.temperature.column:
+        context.add(mapping.temperature.column)
+    return [c for c in header if c not in context and c not in mapping.ignore]
+
+
+def check_declared_columns(mapping: Mapping, header: list[str]) -> None:
+    for key, column in mapping.context.items():
+        _require(mapping, header, column, f"context.{key}")
+    if mapping.temperature and mapping.temperature.column:
+        _require(mapping, header, mapping.temperature.column, "context.temperature")
+    for column in mapping.ignore:
+        _require(mapping, header, column, "ignore")
+    for trait_column in mapping.traits:
+        _require(mapping, header, trait_column.column, f"traits.{trait_column.column}")
+    if mapping.columns is not None:
+        for key in ("trait", "value", "unit", "statistic", "n"):
+            column = getattr(mapping.columns, key)
+            if column is not None:
+                _require(mapping, header, column, f"columns.{key}")
+
+
+# ---------------------------------------------------------------- reshaping
+
+
+def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarray]:
+    out: dict[str, np.ndarray] = {}
+    missing = set(mapping.read.missing)
+    for key, target in CONTEXT_COLUMNS.items():
+        column = mapping.context.get(key)
+        if column is None:
+            out[target] = np.full(len(frame), None, dtype=object)
+            continue
+        values = frame[column].astype(object).to_numpy()
+        stripped = pd.Series(values, dtype=object).str.strip()
+        blank = stripped.isin(missing) | stripped.isna() | (stripped == "")
+        out[target] = np.where(blank.to_numpy(), None, stripped.to_numpy())
+    if mapping.temperature and mapping.temperature.column:
+        out["temperature_raw"] = frame[mapping.temperature.column].astype(object).to_numpy()
+    else:
+        out["temperature_raw"] = np.full(len(frame), None, dtype=object)
+    return out
+
+
+def _wide_cells(
+    mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int
+) -> pd.DataFrame:
+    rows = np.arange(first_row, first_row + len(frame), dtype=np.int64)
+    context = _context_arrays(mapping, frame)
+    pieces = []
+    for column in columns:
+        declared = mapping.trait_column(column)
+        piece = {
+            "source_row": rows,
+            "column": np.full(len(frame), column, dtype=object),
+            "original_name": np.full(len(frame), column, dtype=object),
+            "raw_value": frame[column].astype(object).to_numpy(),
+            "raw_unit": np.full(len(frame), declared.unit if declared else None, dtype=object),
+            "statistic": np.full(
+                len(frame), declared.statistic if declared else None, dtype=object
+            ),
+            **context,
+        }
+        pieces.append(pd.DataFrame(piece))
+    if not pieces:
+        return pd.DataFrame({name: pd.Series([], dtype=object) for name in CELL_COLUMNS})
+    return pd.concat(pieces, ignore_index=True)[list(CELL_COLUMNS)]
+
+
+def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.DataFrame:
+    spec = mapping.columns
+    assert spec is not None  # checked when the mapping was loaded
+    context = _context_arrays(mapping, frame)
+    none = np.full(len(frame), None, dtype=object)
+    cells = pd.DataFrame(
+        {
+            "source_row": np.arange(first_row, first_row + len(frame), dtype=np.int64),
+            "column": np.full(len(frame), spec.value, dtype=object),
+            "original_name": frame[spec.trait].astype(object).str.strip().to_numpy(),
+            "raw_value": frame[spec.value].astype(object).to_numpy(),
+            "raw_unit": frame[spec.unit].astype(object).to_numpy() if spec.unit else none,
+            "statistic": frame[spec.statistic].astype(object).to_numpy()
+            if spec.statistic
+            else none,
+            **context,
+        }
+    )
+    if spec.n:
+        cells["n_raw"] = frame[spec.n].astype(object).to_numpy()
+    return cells[list(CELL_COLUMNS)]
+
+
+def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellBatch]:
+    """Read the mapping's source batch by batch and yield its trait cells."""
+    limits = limits or Limits()
+    size = mapping.path.stat().st_size if mapping.path.is_file() else 0
+    if size > limits.max_file_bytes:
+        raise SourceReadError(
+            f"file is {size} bytes, above the limit of {limits.max_file_bytes}",
+            file=str(mapping.path),
+            hint="raise limits.max_file_bytes in harmonize.yaml if this is intended",
+        )
+    header = read_header(mapping)
+    if len(header) > limits.max_columns:
+        raise SourceReadError(
+            f"{len(header)} columns, above the limit of {limits.max_columns}",
+            file=str(mapping.path),
+        )
+    check_declared_columns(mapping, header)
+    _, reader = READERS[mapping.format]
+    columns = trait_columns(mapping, header) if mapping.layout == "wide" else []
+    first_row = 1
+    for frame in reader(mapping, header, limits):
+        if mapping.layout == "wide":
+            cells = _wide_cells(mapping, frame, columns, first_row)
+        else:
+            cells = _long_cells(mapping, frame, first_row)
+        yield CellBatch(cells=cells, rows=len(frame))
+        first_row += len(frame)
+
+
+def read_text_frame(mapping: Mapping, limits: Limits | None = None) -> pd.DataFrame:
+    """The whole source as text columns (for previews and the review sheet's example values)."""
+    header = read_header(mapping)
+    _, reader = READERS[mapping.format]
+    frames = list(reader(mapping, header, limits or Limits()))
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=header)
