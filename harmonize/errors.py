@@ -105,5 +105,4 @@ class RejectReason(StrEnum):
     CELL_TOO_LARGE = "cell-too-large"
     BAD_TEMPERATURE = "bad-temperature"
     UNKNOWN_CATEGORY = "unknown-category"
-    NAME_NEEDS_REVIEW = "name-needs-review"
     DUPLICATE_STATISTIC = "duplicate-statistic"
