@@ -1,0 +1,554 @@
+"""Turn trait cells into output rows: individual values, population statistic cells and rejects.
+
+This stage applies, per batch of cells and always column-wise: the name decisions (made by
+`match`), value parsing (`values`), unit conversion (`units`, one factor per (unit, trait) group),
+plausibility flags and temperature correction (`temperature`). It decides for every cell exactly
+one fate: empty by declaration, rejected with a reason, or written. Pivoting population statistic
+cells into summaries is left to `summaries`; writing files is left to `package`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from harmonize import units, values
+from harmonize.errors import RejectReason
+from harmonize.match import NameMatch
+from harmonize.project import Mapping
+from harmonize.taxa import clean_taxon_names
+from harmonize.temperature import TemperatureCorrection, correct_rates, temperature_problems
+from harmonize.vocab import Vocabulary
+
+# Statistic spellings met in long tables and column names -> our statistic codes.
+STATISTIC_ALIASES = {
+    "value": "value", "individual": "value", "raw": "value",
+    "mean": "mean", "avg": "mean", "average": "mean", "x̄": "mean", "mittelwert": "mean", "moyenne": "mean",
+    "media": "mean",
+    "sd": "sd", "s.d.": "sd", "std": "sd", "stdev": "sd", "std.dev": "sd", "std dev": "sd",
+    "standard deviation": "sd",
+    "se": "se", "s.e.": "se", "sem": "se", "s.e.m.": "se", "std.err": "se", "standard error": "se",
+    "n": "n", "count": "n", "sample size": "n", "sample_size": "n",
+    "min": "min", "minimum": "min", "max": "max", "maximum": "max", "median": "median",
+    "q1": "q1", "lower quartile": "q1", "25%": "q1", "p25": "q1",
+    "q3": "q3", "upper quartile": "q3", "75%": "q3", "p75": "q3",
+    "ci_low": "ci_low", "lcl": "ci_low", "lower ci": "ci_low", "ci lower": "ci_low", "ci_lower": "ci_low",
+    "ci_high": "ci_high", "ucl": "ci_high", "upper ci": "ci_high", "ci upper": "ci_high", "ci_upper": "ci_high",
+}  # fmt: skip
+STATISTIC_CODES = (
+    "value",
+    "mean",
+    "sd",
+    "se",
+    "n",
+    "min",
+    "max",
+    "median",
+    "q1",
+    "q3",
+    "ci_low",
+    "ci_high",
+)
+LOCATION_STATISTICS = ("value", "mean", "min", "max", "median", "q1", "q3", "ci_low", "ci_high")
+SPREAD_STATISTICS = ("sd", "se")
+
+INDIVIDUAL_OUTPUT = (
+    "source_row", "taxon_verbatim", "taxon", "taxon_qualifier", "sex", "life_stage", "site", "date",
+    "individual_id", "trait_id", "role", "unit", "ucum", "value", "value_text", "qualifier",
+    "original_value", "original_name", "original_unit", "unit_origin", "match_method", "match_score",
+    "measurement_temperature", "temperature_correction", "flags", "column",
+)  # fmt: skip
+
+
+@dataclass
+class SourcePlan:
+    """What a source's cells need, decided once before reading data."""
+
+    mapping: Mapping
+    vocabulary: Vocabulary
+    names: dict[str, NameMatch]  # original name -> match (declared columns included)
+    roles: dict[str, str] = field(default_factory=dict)  # original name -> role override
+    correction: TemperatureCorrection | None = None
+    max_cell_chars: int = 256
+    taxon_synonyms: dict[str, str] | None = None
+
+
+@dataclass
+class BatchResult:
+    individual: pd.DataFrame
+    statistic_cells: pd.DataFrame  # population cells, one row per accepted statistic cell
+    rejects: pd.DataFrame
+    empty: int
+
+
+def _join_flags(*parts: np.ndarray) -> np.ndarray:
+    """Join per-row flag arrays (object arrays of str or '') with ';', skipping blanks."""
+    frame = pd.DataFrame({i: pd.Series(p, dtype=object).fillna("") for i, p in enumerate(parts)})
+    joined = frame.agg(";".join, axis=1) if len(frame) else pd.Series([], dtype=object)
+    return joined.str.replace(r";{2,}", ";", regex=True).str.strip(";").to_numpy(dtype=object)
+
+
+def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.DataFrame:
+    chosen = cells.loc[mask]
+    return pd.DataFrame(
+        {
+            "source_row": chosen["source_row"].to_numpy(),
+            "column": chosen["column"].to_numpy(),
+            "original_name": chosen["original_name"].to_numpy(),
+            "raw_value": chosen["raw_value"].to_numpy(),
+            "raw_unit": chosen["raw_unit"].to_numpy(),
+            "reason": np.asarray(reason, dtype=object)[mask] if np.ndim(reason) else str(reason),
+            "message": np.asarray(message, dtype=object)[mask] if np.ndim(message) else message,
+        }
+    )
+
+
+def normalise_statistic(raw: pd.Series) -> pd.Series:
+    key = raw.astype(object).where(raw.notna(), None)
+    lowered = pd.Series(key, dtype=object).str.strip().str.lower()
+    return lowered.map(STATISTIC_ALIASES)
+
+
+class _Fate:
+    """Tracks which cells are still undecided; each decision removes cells from the pool."""
+
+    def __init__(self, cells: pd.DataFrame) -> None:
+        self.cells = cells
+        self.open = np.ones(len(cells), dtype=bool)
+        self.rejects: list[pd.DataFrame] = []
+
+    def reject(self, mask: np.ndarray, reason, message) -> None:
+        """Reject the still-open cells in `mask`; `message` is text, a per-cell array, or a
+        function of the rejected cells' positions (so messages are only built where needed)."""
+        mask = mask & self.open
+        if mask.any():
+            if callable(message):
+                full = np.full(len(mask), None, dtype=object)
+                positions = np.flatnonzero(mask)
+                full[positions] = message(positions)
+                message = full
+            self.rejects.append(_reject_frame(self.cells, mask, reason, message))
+            self.open &= ~mask
+
+    def rejected(self) -> pd.DataFrame:
+        if not self.rejects:
+            return pd.DataFrame(
+                columns=[
+                    "source_row",
+                    "column",
+                    "original_name",
+                    "raw_value",
+                    "raw_unit",
+                    "reason",
+                    "message",
+                ]
+            )
+        return pd.concat(self.rejects, ignore_index=True)
+
+
+def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
+    mapping = plan.mapping
+    vocabulary = plan.vocabulary
+    cells = cells.reset_index(drop=True)
+    fate = _Fate(cells)
+    count = len(cells)
+
+    # 1. values: one parse per batch (read options are per source)
+    parsed = values.parse_numbers(
+        cells["raw_value"],
+        decimal=mapping.read.decimal,
+        thousands=mapping.read.thousands,
+        missing=mapping.read.missing,
+        max_cell_chars=plan.max_cell_chars,
+    )
+    empty = parsed.empty.copy()
+    fate.open &= ~empty
+
+    # 2. names: one lookup table per distinct name, taken per cell by integer codes
+    names = cells["original_name"].astype(object).fillna("")
+    name_codes, distinct = pd.factorize(names)
+    name_table = _name_table(list(distinct), plan)
+    per_name = {
+        column: name_table[column].to_numpy(dtype=object)[name_codes]
+        for column in name_table.columns
+    }
+    trait_id = per_name["trait_id"]
+    fate.reject(per_name["status"] == "rejected", RejectReason.NAME_REJECTED, per_name["message"])
+    unmatched = pd.isna(pd.Series(trait_id)).to_numpy()
+    fate.reject(unmatched, RejectReason.UNMATCHED_NAME, per_name["message"])
+
+    # per-trait facts, taken per cell by integer codes
+    trait_codes, used_traits = pd.factorize(
+        pd.Series(trait_id, dtype=object), use_na_sentinel=False
+    )
+    trait_table = _trait_table(list(used_traits), vocabulary, mapping.level)
+    per_trait = {
+        column: trait_table[column].to_numpy()[trait_codes] for column in trait_table.columns
+    }
+    terms = {t: vocabulary.terms[t] for t in used_traits if isinstance(t, str)}
+    kind = per_trait["kind"]
+    canonical = per_trait["unit"]
+
+    # 3. level allowed for the trait
+    level_bad = per_trait["level_ok"] == False  # noqa: E712 - elementwise on an object array
+    fate.reject(
+        level_bad,
+        RejectReason.LEVEL_NOT_ALLOWED,
+        f"trait is not recorded at {mapping.level} level in the vocabulary",
+    )
+
+    # 4. taxon
+    if "taxon" in mapping.context:
+        no_taxon = cells["taxon_verbatim"].isna().to_numpy()
+        fate.reject(
+            no_taxon,
+            RejectReason.MISSING_TAXON,
+            f"no taxon name in column '{mapping.context['taxon']}'",
+        )
+
+    # 5. statistic
+    hints = per_name["statistic_hint"]
+    declared = cells["statistic"]
+    statistic = normalise_statistic(declared).to_numpy(dtype=object)
+    unknown_stat = (
+        declared.notna().to_numpy()
+        & (declared.astype(str).str.strip() != "").to_numpy()
+        & pd.isna(pd.Series(statistic)).to_numpy()
+    )
+    declared_text = declared.to_numpy(dtype=object)
+    fate.reject(
+        unknown_stat,
+        RejectReason.UNKNOWN_STATISTIC,
+        lambda at: [
+            f"unknown statistic '{s}'; use one of {', '.join(STATISTIC_CODES)}"
+            for s in declared_text[at]
+        ],
+    )
+    statistic = np.where(pd.isna(pd.Series(statistic)).to_numpy(), hints, statistic)
+    stat_flags = np.full(count, "", dtype=object)
+    if mapping.level == "individual":
+        not_value = ~pd.isna(pd.Series(statistic)).to_numpy() & (statistic != "value")
+        fate.reject(
+            not_value,
+            RejectReason.UNKNOWN_STATISTIC,
+            lambda at: [
+                f"statistic '{s}' in an individual-level source: declare level: population"
+                for s in statistic[at]
+            ],
+        )
+        statistic = np.full(count, "value", dtype=object)
+    else:
+        assumed = pd.isna(pd.Series(statistic)).to_numpy()
+        statistic = np.where(assumed, "mean", statistic)
+        stat_flags = np.where(assumed, "statistic-assumed-mean", "")
+
+    # 6. category traits
+    is_category = np.isin(kind, ["category", "text"])
+    text_values = np.full(count, None, dtype=object)
+    if is_category.any():
+        cleaned, _ = values.parse_categories(cells["raw_value"], missing=mapping.read.missing)
+        text_values = np.where(is_category, cleaned, None)
+        allowed = {
+            t: {c.lower() for c in terms[t].categories} for t in terms if terms[t].categories
+        }
+        lowered = pd.Series(text_values, dtype=object).str.lower()
+        bad_category = np.zeros(count, dtype=bool)
+        for trait, choices in allowed.items():  # one pass per category trait, not per cell
+            here = is_category & (trait_id == trait)
+            bad_category |= here & lowered.notna().to_numpy() & ~lowered.isin(choices).to_numpy()
+        fate.reject(
+            bad_category,
+            RejectReason.UNKNOWN_CATEGORY,
+            lambda at: [
+                f"'{v}' is not a category of {t}: use one of {sorted(allowed[t])}"
+                for t, v in zip(trait_id[at], text_values[at], strict=True)
+            ],
+        )
+
+    # 7. numbers: reasons from parsing (ranges are never a single value)
+    numeric = ~is_category
+    parse_failed = numeric & pd.notna(pd.Series(parsed.reason)).to_numpy()
+    fate.reject(parse_failed, parsed.reason, parsed.message)
+
+    # 8. units: effective unit text and where it came from
+    declared_unit = _blank_to_none(cells["raw_unit"])
+    cell_unit = _blank_to_none(pd.Series(parsed.unit_in_cell, dtype=object))
+    hint_unit = per_name["unit_hint"]
+    unit_text = np.where(
+        pd.notna(declared_unit), declared_unit, np.where(pd.notna(cell_unit), cell_unit, hint_unit)
+    )
+    unit_origin = np.where(
+        pd.notna(declared_unit),
+        "mapping",
+        np.where(
+            pd.notna(cell_unit),
+            "cell",
+            np.where(pd.notna(pd.Series(hint_unit)).to_numpy(), "name-hint", "none"),
+        ),
+    )
+    unit_flags = np.where(
+        pd.notna(declared_unit) & pd.notna(cell_unit) & (declared_unit != cell_unit),
+        "cell-unit-differs-from-declared",
+        "",
+    )
+    scale = np.ones(count)
+    offset = np.zeros(count)
+    conversion_flags = np.full(count, "", dtype=object)
+    needs_unit = numeric & (statistic != "n") & fate.open
+    if needs_unit.any():
+        keys = pd.DataFrame(
+            {
+                "unit": pd.Series(unit_text, dtype=object).fillna("\0"),
+                "canon": pd.Series(canonical, dtype=object).fillna("\0"),
+            }
+        )
+        codes, uniques = pd.factorize(pd.MultiIndex.from_frame(keys[needs_unit]))
+        reason = np.full(count, None, dtype=object)
+        message = np.full(count, None, dtype=object)
+        index = np.flatnonzero(needs_unit)
+        for code, (raw, canon) in enumerate(uniques):
+            conv = units.conversion(
+                None if raw == "\0" else raw, canon if canon != "\0" else "dimensionless"
+            )
+            rows = index[codes == code]
+            if not conv.ok:
+                reason[rows] = conv.reason
+                message[rows] = conv.message
+                continue
+            scale[rows] = conv.scale
+            offset[rows] = conv.offset
+            if conv.flags:
+                conversion_flags[rows] = ";".join(conv.flags)
+        fate.reject(pd.notna(pd.Series(reason)).to_numpy(), reason, message)
+
+    # 9. converted numbers: location statistics affine, spread statistics by |scale|, n as is
+    is_spread = np.isin(statistic, SPREAD_STATISTICS)
+    is_n = statistic == "n"
+    number = parsed.value
+    converted = np.where(
+        is_n, number, np.where(is_spread, number * np.abs(scale), number * scale + offset)
+    )
+
+    # 10. temperature of measurement, in degC
+    temperature, temperature_reason = _measurement_temperature(cells, plan)
+    correction_label = np.full(count, None, dtype=object)
+    is_rate = per_trait["rate"].astype(bool) & numeric & ~is_n
+    if plan.correction is not None and is_rate.any():
+        bad = is_rate & pd.notna(pd.Series(temperature_reason)).to_numpy()
+        fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_reason)
+        corrected, reasons = correct_rates(converted, temperature, plan.correction)
+        bad = is_rate & pd.notna(pd.Series(reasons)).to_numpy()
+        fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_problems(temperature))
+        converted = np.where(is_rate, corrected, converted)
+        correction_label = np.where(is_rate, plan.correction.label(), None)
+
+    # 11. flags a reviewer should see
+    lo = per_trait["plausible_min"].astype(float)
+    hi = per_trait["plausible_max"].astype(float)
+    location = np.isin(statistic, ("value", "mean", "median"))
+    outside = location & numeric & ((converted < lo) | (converted > hi))
+    qualifier = np.asarray(parsed.qualifier, dtype=object)
+    flags = _join_flags(
+        np.where(outside, "outside-plausible-range", ""),
+        np.where(
+            (qualifier != "") & pd.notna(pd.Series(qualifier)).to_numpy(),
+            np.char.add("qualifier:", qualifier.astype(str)),
+            "",
+        ),
+        conversion_flags,
+        unit_flags,
+        np.where(unit_origin == "name-hint", "unit-from-name", ""),
+        stat_flags,
+        np.where(correction_label != None, "temperature-corrected", ""),  # noqa: E711 - elementwise
+    )
+
+    written = fate.open
+    taxa = clean_taxon_names(cells["taxon_verbatim"], plan.taxon_synonyms)
+    match_method = per_name["method"]
+    match_score = per_name["score"].astype(float)
+    role = np.where(
+        pd.notna(pd.Series(per_name["role"])).to_numpy(), per_name["role"], per_trait["role"]
+    )
+    out = pd.DataFrame(
+        {
+            "source_row": cells["source_row"].to_numpy(),
+            "column": cells["column"].to_numpy(),
+            "taxon_verbatim": cells["taxon_verbatim"].to_numpy(),
+            "taxon": taxa["taxon"].to_numpy(),
+            "taxon_qualifier": taxa["taxon_qualifier"].to_numpy(),
+            "sex": cells["sex"].to_numpy(),
+            "life_stage": cells["life_stage"].to_numpy(),
+            "site": cells["site"].to_numpy(),
+            "date": cells["date"].to_numpy(),
+            "individual_id": cells["individual_id"].to_numpy(),
+            "trait_id": trait_id,
+            "role": role,
+            "unit": per_trait["unit_text"],
+            "ucum": per_trait["ucum"],
+            "value": np.where(numeric, converted, np.nan),
+            "value_text": text_values,
+            "qualifier": np.where(qualifier == "", None, qualifier),
+            "original_value": cells["raw_value"].to_numpy(),
+            "original_name": names.to_numpy(),
+            "original_unit": unit_text,
+            "unit_origin": np.where(numeric, unit_origin, "none"),
+            "match_method": match_method,
+            "match_score": match_score,
+            "measurement_temperature": temperature,
+            "temperature_correction": correction_label,
+            "flags": np.where(flags == "", None, flags),
+            "statistic": statistic,
+            "n_raw": cells["n_raw"].to_numpy(),
+        }
+    )[written]
+
+    if mapping.level == "individual":
+        individual = out.drop(columns=["statistic", "n_raw"])
+        statistic_cells = out.iloc[0:0]
+    else:
+        individual = out.iloc[0:0].drop(columns=["statistic", "n_raw"])
+        statistic_cells = out
+    return BatchResult(
+        individual=individual,
+        statistic_cells=statistic_cells,
+        rejects=fate.rejected(),
+        empty=int(empty.sum()),
+    )
+
+
+def _blank_to_none(series: pd.Series) -> np.ndarray:
+    text = series.astype(object)
+    stripped = text.where(text.isna(), text.astype(str).str.strip())
+    return stripped.where(stripped.notna() & (stripped != ""), None).to_numpy(dtype=object)
+
+
+def _unmatched_message(name: str, match: NameMatch | None) -> str:
+    if match is None or match.trait_id is None:
+        return f"trait name '{name}' matches no vocabulary term; add a decision in the review sheet or declare `trait:` in the mapping"
+    return (
+        f"trait name '{name}' needs review: best guess '{match.trait_id}' (score {match.score:.0f}); "
+        "accept or reject it in the review sheet, or declare `trait:` in the mapping"
+    )
+
+
+def _name_table(distinct: list[str], plan: SourcePlan) -> pd.DataFrame:
+    """One row per distinct name: the accepted trait (or None) and what goes with it."""
+    rows = []
+    for name in distinct:
+        match = plan.names.get(name)
+        accepted = match is not None and match.status == "accepted" and match.trait_id is not None
+        if match is not None and match.status == "rejected":
+            message = f"trait name '{name}' was rejected in the decisions file"
+        else:
+            message = _unmatched_message(name, match)
+        rows.append(
+            {
+                "trait_id": match.trait_id if accepted else None,
+                "status": match.status if match else "review",
+                "method": match.method if match else "unmatched",
+                "score": match.score if match else np.nan,
+                "statistic_hint": match.statistic_hint if match else None,
+                "unit_hint": match.unit_hint if match else None,
+                "role": plan.roles.get(name),
+                "message": message,
+            }
+        )
+    return pd.DataFrame(
+        rows,
+        columns=[
+            "trait_id",
+            "status",
+            "method",
+            "score",
+            "statistic_hint",
+            "unit_hint",
+            "role",
+            "message",
+        ],
+    )
+
+
+def _trait_table(used: list, vocabulary: Vocabulary, level: str) -> pd.DataFrame:
+    """One row per trait id met in the batch (None included): facts from the vocabulary."""
+    rows = []
+    for trait_id in used:
+        term = vocabulary.terms.get(trait_id) if isinstance(trait_id, str) else None
+        if term is None:
+            rows.append(
+                {
+                    "kind": "",
+                    "unit": None,
+                    "unit_text": None,
+                    "ucum": None,
+                    "role": None,
+                    "rate": False,
+                    "plausible_min": -np.inf,
+                    "plausible_max": np.inf,
+                    "level_ok": True,
+                }
+            )
+            continue
+        unit_text, ucum = _unit_texts(term.unit)
+        low, high = term.plausible if term.plausible else (-np.inf, np.inf)
+        rows.append(
+            {
+                "kind": term.kind, "unit": term.unit, "unit_text": unit_text, "ucum": ucum, "role": term.role,
+                "rate": bool(term.rate), "plausible_min": float(low), "plausible_max": float(high),
+                "level_ok": level in term.levels,
+            }
+        )  # fmt: skip
+    return pd.DataFrame(
+        rows,
+        columns=[
+            "kind",
+            "unit",
+            "unit_text",
+            "ucum",
+            "role",
+            "rate",
+            "plausible_min",
+            "plausible_max",
+            "level_ok",
+        ],
+    )
+
+
+def _unit_texts(unit: str | None) -> tuple[str | None, str | None]:
+    """The canonical unit as pint text and as a UCUM code (None for unitless kinds)."""
+    if unit is None:
+        return None, None
+    from harmonize.ucum import to_ucum
+
+    return units.format_unit(unit), to_ucum(unit)
+
+
+def _measurement_temperature(
+    cells: pd.DataFrame, plan: SourcePlan
+) -> tuple[np.ndarray, np.ndarray]:
+    """Temperature of measurement per cell in degC, and a reason text where it cannot be read."""
+    spec = plan.mapping.temperature
+    count = len(cells)
+    reasons = np.full(count, None, dtype=object)
+    if spec is None:
+        reasons[:] = "no measurement temperature declared (context.temperature in the mapping)"
+        return np.full(count, np.nan), reasons
+    conv = units.conversion(spec.unit, "degC")
+    if not conv.ok:
+        reasons[:] = f"temperature unit '{spec.unit}': {conv.message}"
+        return np.full(count, np.nan), reasons
+    if spec.value is not None:
+        return np.full(count, spec.value * conv.scale + conv.offset), reasons
+    parsed = values.parse_numbers(
+        cells["temperature_raw"],
+        decimal=plan.mapping.read.decimal,
+        missing=plan.mapping.read.missing,
+    )
+    celsius = parsed.value * conv.scale + conv.offset
+    bad = ~np.isfinite(celsius)
+    raw = cells["temperature_raw"].to_numpy(dtype=object)[bad]
+    reasons[bad] = [
+        f"measurement temperature '{r}' in column '{spec.column}' is not a number" for r in raw
+    ]
+    return celsius, reasons
