@@ -1,0 +1,365 @@
+"""Write the output tables as a byte-reproducible Frictionless Data Package.
+
+Given one frame per resource of `harmonize.tables`, this module conforms each frame to its
+resource, sorts rows by the primary key, writes one CSV (the canonical, validated format) or
+Parquet file per resource, and writes `datapackage.json` describing them: field types,
+required/enum constraints, primary and foreign keys, per-field `role` and `unit`, the
+individual/population split (`x-level`) and a package-level `x-harmonize` block.
+
+It leaves the column definitions to `harmonize.tables`, the checking of the written package to
+`harmonize.package_validate`, and what goes into the frames to the earlier pipeline stages.
+
+Reproducibility: the same frames give byte-identical files. CSV floats are written in Python's
+shortest round-trip form, lines end in '\\n'; the descriptor is built in a fixed key order; the
+Parquet writer gets a fixed schema, compression and statistics setting and no pandas metadata.
+Nothing records wall-clock time unless `PackageInfo.created` is given.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from harmonize import tables as data_model
+from harmonize.errors import BuildError, ConfigError
+
+# Data Package v2 profile URL; frictionless reads it as a version marker and does not fetch it.
+DATAPACKAGE_SCHEMA = "https://datapackage.org/profiles/2.0/datapackage.json"
+# v1 names must match this pattern (Data Package v1 spec, "name"); keeping to it stays portable.
+NAME_PATTERN = re.compile(r"^[-a-z0-9._/]+$")
+# The descriptor says empty cells are missing; string cells equal to "" are therefore written as
+# missing in Parquet too, so both formats carry the same data.
+MISSING_VALUES = ("",)
+
+_LEVELS = {
+    data_model.INDIVIDUAL_VALUES.name: "individual",
+    data_model.POPULATION_SUMMARIES.name: "population",
+}
+# Columns that hold the trait's measured value (or a statistic of it, in the canonical unit).
+_MEASUREMENT_COLUMNS = {
+    data_model.INDIVIDUAL_VALUES.name: {"value", "value_text"},
+    data_model.POPULATION_SUMMARIES.name: {
+        "mean",
+        "sd",
+        "se",
+        "min",
+        "max",
+        "median",
+        "q1",
+        "q3",
+        "ci_low",
+        "ci_high",
+        "value_text",
+    },
+}
+_IDENTIFIER_COLUMNS = {"record_id", "source_id", "trait_id"}
+_UNIT_COLUMNS = {"unit", "ucum", "original_unit", "raw_unit", "unit_hint"}
+# Fixed units that the data model states in the column description.
+_DEFAULT_FIELD_UNITS = {
+    data_model.INDIVIDUAL_VALUES.name: {"measurement_temperature": "degC"},
+    data_model.POPULATION_SUMMARIES.name: {"measurement_temperature": "degC"},
+}
+
+_ARROW_TYPES = {
+    "string": pa.string(),
+    "integer": pa.int64(),
+    "number": pa.float64(),
+    "boolean": pa.bool_(),
+    "date": pa.date32(),
+}
+
+
+@dataclass(frozen=True)
+class PackageInfo:
+    """Package-level metadata. `created` None leaves the timestamp out (reproducible builds)."""
+
+    name: str
+    title: str
+    description: str
+    version: str
+    created: str | None
+    vocabulary_version: str
+    tool_version: str
+    licenses: tuple[dict, ...] = ()
+
+
+@dataclass(frozen=True)
+class _WrittenFile:
+    path: str  # relative to the package folder
+    format: str
+    mediatype: str
+    size: int
+    sha256: str
+
+
+def write_package(
+    tables: Mapping[str, pd.DataFrame],
+    folder: Path,
+    info: PackageInfo,
+    *,
+    fmt: str = "csv",
+    field_units: Mapping[str, Mapping[str, str]] | None = None,
+) -> Path:
+    """Write every resource of `harmonize.tables.RESOURCES` and `datapackage.json` into `folder`.
+
+    `tables` maps resource names to frames; a resource left out is written empty so the
+    package always has the same shape (the foreign keys need `traits` and `sources`).
+    `field_units` adds `"unit"` to fields: {resource: {column: pint unit}}.
+    Returns the path of `datapackage.json`.
+    """
+    writer = _WRITERS.get(fmt)
+    if writer is None:
+        raise ConfigError(
+            f"unknown package format {fmt!r}", hint=f"use one of: {', '.join(_WRITERS)}"
+        )
+    if not NAME_PATTERN.match(info.name):
+        raise ConfigError(
+            f"package name {info.name!r} is not allowed",
+            hint="use lower-case letters, digits and - . _ / only",
+        )
+    unknown = sorted(set(tables) - set(data_model.BY_NAME))
+    if unknown:
+        raise BuildError(
+            f"no such resource(s) {unknown}", hint=f"known: {', '.join(data_model.BY_NAME)}"
+        )
+    units = _merge_field_units(field_units)
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    resources = []
+    roles: dict[str, str] = {}
+    for resource in data_model.RESOURCES:
+        given = tables.get(resource.name)
+        frame = data_model.conform(_with_missing_columns(given, resource), resource)
+        frame = _sorted_by_primary_key(_empty_strings_to_missing(frame, resource), resource)
+        if resource.name == data_model.TRAITS.name:
+            roles = _trait_roles(frame)
+        written = writer(frame, resource, folder)
+        resources.append(_resource_descriptor(resource, written, units.get(resource.name, {})))
+
+    descriptor = _package_descriptor(info, roles, resources)
+    target = folder / "datapackage.json"
+    target.write_bytes((json.dumps(descriptor, indent=2, ensure_ascii=False) + "\n").encode())
+    return target
+
+
+# --- frames -------------------------------------------------------------------------------
+
+
+def _with_missing_columns(
+    frame: pd.DataFrame | None, resource: data_model.Resource
+) -> pd.DataFrame:
+    """Add the resource's absent columns as typed, all-missing columns.
+
+    `tables.conform` would add them too, but `pd.Series(pd.NA, dtype="float64")` raises in
+    pandas 3, so absent number columns are filled here from the typed empty frame instead.
+    """
+    if frame is None:
+        return resource.empty_frame()
+    absent = [name for name in resource.column_names if name not in frame.columns]
+    if not absent:
+        return frame
+    filler = resource.empty_frame()[absent].reindex(frame.index)
+    return pd.concat([frame, filler], axis=1)
+
+
+def _empty_strings_to_missing(frame: pd.DataFrame, resource: data_model.Resource) -> pd.DataFrame:
+    out = frame.copy()
+    for column in resource.columns:
+        if column.type in ("string", "date"):
+            series = out[column.name]
+            out[column.name] = series.mask(series.isin(MISSING_VALUES))
+    return out
+
+
+def _sorted_by_primary_key(frame: pd.DataFrame, resource: data_model.Resource) -> pd.DataFrame:
+    # A stable sort keeps input order among ties, so even duplicate keys (which validation will
+    # report) give the same bytes from the same input.
+    return frame.sort_values(
+        list(resource.primary_key), kind="mergesort", na_position="last"
+    ).reset_index(drop=True)
+
+
+def _trait_roles(traits: pd.DataFrame) -> dict[str, str]:
+    known = traits.dropna(subset=["trait_id"])
+    return dict(zip(known["trait_id"].tolist(), known["role"].astype(object).tolist(), strict=True))
+
+
+# --- writers (dispatch table below) -------------------------------------------------------
+
+
+def _write_csv(frame: pd.DataFrame, resource: data_model.Resource, folder: Path) -> _WrittenFile:
+    out = frame.copy()
+    for column in resource.columns:
+        if column.type == "boolean":
+            # Lower-case literals are the Table Schema default trueValues/falseValues everywhere.
+            out[column.name] = out[column.name].map({True: "true", False: "false"})
+    text = out.to_csv(index=False, lineterminator="\n", na_rep="", float_format=None)
+    data = text.encode("utf-8")
+    name = f"{resource.name}.csv"
+    (folder / name).write_bytes(data)
+    return _WrittenFile(name, "csv", "text/csv", len(data), hashlib.sha256(data).hexdigest())
+
+
+def _write_parquet(
+    frame: pd.DataFrame, resource: data_model.Resource, folder: Path
+) -> _WrittenFile:
+    arrays = []
+    for column in resource.columns:
+        series = frame[column.name]
+        if column.type == "date":
+            strings = pa.array(series, type=pa.string(), from_pandas=True)
+            try:
+                parsed = pc.strptime(strings, format="%Y-%m-%d", unit="s")
+            except pa.ArrowInvalid as error:
+                raise BuildError(
+                    f"{resource.name}: column {column.name!r} holds a value that is not an "
+                    f"ISO date ({error})"
+                ) from error
+            arrays.append(pc.cast(parsed, pa.date32()))
+        else:
+            arrays.append(pa.array(series, type=_ARROW_TYPES[column.type], from_pandas=True))
+    # A required column is declared non-nullable only when it really holds no nulls; otherwise
+    # pyarrow would refuse the table and the validator could not report the offending rows.
+    schema = pa.schema(
+        [
+            pa.field(c.name, _ARROW_TYPES[c.type], nullable=not c.required or a.null_count > 0)
+            for c, a in zip(resource.columns, arrays, strict=True)
+        ]
+    )
+    table = pa.Table.from_arrays(arrays, schema=schema)
+    name = f"{resource.name}.parquet"
+    pq.write_table(
+        table,
+        folder / name,
+        compression="zstd",
+        compression_level=3,
+        write_statistics=True,
+        use_dictionary=True,
+        version="2.6",
+    )
+    # No `bytes`/`hash` for Parquet: frictionless cannot check them (ECOSYSTEM-NOTES §1).
+    return _WrittenFile(name, "parquet", "application/vnd.apache.parquet", 0, "")
+
+
+_WRITERS: dict[str, Callable[[pd.DataFrame, data_model.Resource, Path], _WrittenFile]] = {
+    "csv": _write_csv,
+    "parquet": _write_parquet,
+}
+
+
+# --- descriptor ---------------------------------------------------------------------------
+
+
+def _merge_field_units(
+    field_units: Mapping[str, Mapping[str, str]] | None,
+) -> dict[str, dict[str, str]]:
+    merged = {name: dict(units) for name, units in _DEFAULT_FIELD_UNITS.items()}
+    for resource_name, units in (field_units or {}).items():
+        resource = data_model.BY_NAME.get(resource_name)
+        if resource is None:
+            raise BuildError(f"field_units names no such resource {resource_name!r}")
+        unknown = sorted(set(units) - set(resource.column_names))
+        if unknown:
+            raise BuildError(f"field_units: {resource_name} has no column(s) {unknown}")
+        merged.setdefault(resource_name, {}).update(units)
+    return merged
+
+
+def _field_role(resource: data_model.Resource, column: data_model.Column) -> str | None:
+    if column.name in _MEASUREMENT_COLUMNS.get(resource.name, ()):
+        return "measurement"
+    if column.name in _IDENTIFIER_COLUMNS:
+        return "identifier"
+    if column.name in _UNIT_COLUMNS:
+        return "unit"
+    return None
+
+
+def _field_descriptor(
+    resource: data_model.Resource, column: data_model.Column, unit: str | None
+) -> dict[str, object]:
+    field: dict[str, object] = {
+        "name": column.name,
+        "type": column.type,
+        "description": column.description,
+    }
+    # Custom keys sit on the field: frictionless rejects unknown keys inside `constraints`.
+    role = _field_role(resource, column)
+    if role is not None:
+        field["role"] = role
+    if unit is not None:
+        field["unit"] = unit
+    constraints: dict[str, object] = {}
+    if column.required:
+        constraints["required"] = True
+    if column.enum:
+        constraints["enum"] = list(column.enum)
+    if constraints:
+        field["constraints"] = constraints
+    return field
+
+
+def _resource_descriptor(
+    resource: data_model.Resource, written: _WrittenFile, units: Mapping[str, str]
+) -> dict[str, object]:
+    descriptor: dict[str, object] = {
+        "name": resource.name,
+        "profile": "tabular-data-resource",
+        "title": resource.title,
+        "description": resource.description,
+    }
+    if resource.name in _LEVELS:
+        descriptor["x-level"] = _LEVELS[resource.name]
+    descriptor["path"] = written.path
+    descriptor["format"] = written.format
+    descriptor["mediatype"] = written.mediatype
+    if written.format == "csv":
+        descriptor["encoding"] = "utf-8"
+        descriptor["bytes"] = written.size
+        descriptor["hash"] = f"sha256:{written.sha256}"
+    schema: dict[str, object] = {
+        "fields": [_field_descriptor(resource, c, units.get(c.name)) for c in resource.columns],
+        "missingValues": list(MISSING_VALUES),
+        "primaryKey": list(resource.primary_key),
+    }
+    if resource.foreign_keys:
+        schema["foreignKeys"] = [
+            {"fields": list(fields), "reference": {"resource": target, "fields": list(keys)}}
+            for fields, target, keys in resource.foreign_keys
+        ]
+    descriptor["schema"] = schema
+    return descriptor
+
+
+def _package_descriptor(
+    info: PackageInfo, roles: Mapping[str, str], resources: list[dict[str, object]]
+) -> dict[str, object]:
+    descriptor: dict[str, object] = {
+        "$schema": DATAPACKAGE_SCHEMA,
+        "profile": "tabular-data-package",
+        "name": info.name,
+        "title": info.title,
+        "description": info.description,
+        "version": info.version,
+    }
+    if info.created is not None:
+        descriptor["created"] = info.created
+    if info.licenses:
+        descriptor["licenses"] = [dict(licence) for licence in info.licenses]
+    descriptor["x-harmonize"] = {
+        "tool_version": info.tool_version,
+        "vocabulary_version": info.vocabulary_version,
+        "roles": dict(roles),
+    }
+    descriptor["resources"] = resources
+    return descriptor
