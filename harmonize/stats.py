@@ -322,7 +322,7 @@ def normalise_summaries(frame: pd.DataFrame) -> pd.DataFrame:
 
     Input columns (any may be absent or NaN): n, mean, sd, se, ci_low, ci_high, ci_level,
     median, q1, q3, min, max; other columns pass through. ci_level is a fraction (0.95); values
-    between 1 and 100 are read as percent. Output adds sd_method, mean_method, flags, reason
+    from 50 to below 100 are read as percent. Output adds sd_method, mean_method, flags, reason
     (an errors.RejectReason value or NA) and message. Rows with a reason keep their statistics
     as given and get nothing derived.
     """
@@ -334,7 +334,8 @@ def normalise_summaries(frame: pd.DataFrame) -> pd.DataFrame:
         numeric = pd.to_numeric(out[column], errors="coerce").astype(float)
         not_numbers[column] = out[column].notna() & numeric.isna()
         out[column] = numeric
-    percent = (out["ci_level"] > 1) & (out["ci_level"] < 100)
+    # 90 or 95 means percent; a level below 50 % is nobody's choice, so 1..50 stays invalid
+    percent = (out["ci_level"] >= 50) & (out["ci_level"] < 100)
     out["ci_level"] = out["ci_level"].where(~percent, out["ci_level"] / 100.0)
 
     message = pd.Series("", index=out.index, dtype=object)
