@@ -199,7 +199,9 @@ def parse_numbers(
 
     `decimal` and `thousands` come from the mapping's read options; `missing` lists tokens that
     mean "no value" (compared after trimming whitespace). Raises ConfigError for unsupported
-    options; problems in cells come back in `reason` and `message`.
+    options; problems in cells come back in `reason` and `message`. Columns already typed as
+    numbers skip the text patterns; object columns mixing numbers and text are read as text,
+    numbers written as Python writes them (decimal point).
     """
     syntax = _number_syntax(decimal, thousands)
     arr = _as_arrow(raw)
