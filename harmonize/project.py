@@ -579,3 +579,72 @@ def load_project(location: Path | str = ".") -> Project:
         version=_string(data.get("version"), project_file, "version") or "",
         limits=limits,
     )
+
+
+def single_file_project(
+    path: Path | str,
+    *,
+    level: str = "individual",
+    layout: str = "wide",
+    output: Path | str | None = None,
+    context: dict[str, str] | None = None,
+    traits: dict[str, TraitColumn] | None = None,
+    columns: LongColumns | None = None,
+    ignore: tuple[str, ...] = (),
+    read: ReadOptions | None = None,
+    temperature: TemperatureSpec | None = None,
+    vocabulary: Path | None = None,
+    output_format: str = "csv",
+) -> Project:
+    """A one-source project for a table without a mapping file (the CLI's quick mode).
+
+    The same checks apply as for a mapping file: declared levels, layouts and statistics must be
+    known, and the table must exist. The project root is the table's folder.
+    """
+    source_path = Path(os.path.realpath(path))
+    if not source_path.is_file():
+        raise SourceNotFoundError("file not found", file=str(path))
+    fmt = EXTENSION_FORMATS.get(source_path.suffix.lower())
+    if fmt is None:
+        raise ConfigError(
+            f"cannot tell the format of '{source_path.name}' from its extension",
+            file=str(path),
+            hint=f"use a file ending in one of {', '.join(EXTENSION_FORMATS)}",
+        )
+    if level not in LEVELS:
+        raise ConfigError(f"level '{level}' is not one of {', '.join(LEVELS)}")
+    if layout not in LAYOUTS:
+        raise ConfigError(f"layout '{layout}' is not one of {', '.join(LAYOUTS)}")
+    if layout == "long" and columns is None:
+        raise ConfigError("a long table needs at least the trait and value columns named")
+    stem = (
+        "".join(ch if ch.isalnum() else "-" for ch in source_path.stem.lower()).strip("-")
+        or "table"
+    )
+    mapping = Mapping(
+        source=stem,
+        mapping_file=source_path.with_name(f"{stem}.quick.yaml"),
+        path=source_path,
+        format=fmt,
+        level=level,
+        layout=layout,
+        read=read or ReadOptions(),
+        citation="",
+        context=dict(context or {}),
+        temperature=temperature,
+        traits=tuple((traits or {}).values()),
+        columns=columns,
+        ignore=tuple(ignore),
+    )
+    root = source_path.parent
+    return Project(
+        root=root,
+        project_file=None,
+        name=stem,
+        title=f"Harmonised {source_path.name}",
+        description=f"Quick harmonisation of {source_path.name} without a mapping file.",
+        vocabulary=Path(vocabulary) if vocabulary else None,
+        mappings=(mapping,),
+        output_folder=Path(output) if output else root / f"{stem}-harmonized",
+        output_format=output_format,
+    )
