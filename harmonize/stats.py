@@ -15,10 +15,12 @@ result (`package`). The formulas and their sources are listed in docs/methods.md
 from __future__ import annotations
 
 from collections.abc import Sequence
+from functools import lru_cache
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
+from scipy import integrate
 from scipy import stats as scipy_stats
 
 from harmonize.errors import ConfigError, RejectReason
@@ -106,10 +108,34 @@ def sd_from_ci(
     return np.where((n >= 2) & np.isfinite(sd), sd, np.nan)
 
 
+# Wan et al. 2014 use the exact expected range of n standard-normal values for n <= 50 (their
+# Table 1, the "d2" constants of quality control) and the approximation of eq. 7 above that.
+WAN_EXACT_RANGE_MAX_N = 50
+
+
+@lru_cache(maxsize=1)
+def _expected_normal_ranges() -> np.ndarray:
+    """E[range] of n standard-normal values for n = 0..50 (0 and 1 are 0)."""
+    # E[range] = integral over x of 1 - Phi(x)^n - (1 - Phi(x))^n (order statistics theory);
+    # computed once per process, one integral per n (not per row).
+    table = np.zeros(WAN_EXACT_RANGE_MAX_N + 1)
+    for n in range(2, WAN_EXACT_RANGE_MAX_N + 1):
+        table[n] = integrate.quad(
+            lambda x, n=n: 1.0 - scipy_stats.norm.cdf(x) ** n - scipy_stats.norm.sf(x) ** n,
+            -np.inf,
+            np.inf,
+        )[0]
+    return table
+
+
 def _wan_range_divisor(n: np.ndarray) -> np.ndarray:
-    # Wan et al. 2014, BMC Med Res Methodol 14:135, eq. 7: xi(n) = 2 * Phi^-1((n-0.375)/(n+0.25))
+    # Wan et al. 2014, BMC Med Res Methodol 14:135: xi(n) from Table 1 for n <= 50, else eq. 7
+    # xi(n) = 2 * Phi^-1((n-0.375)/(n+0.25))
     with np.errstate(invalid="ignore"):
-        return 2.0 * scipy_stats.norm.ppf((n - 0.375) / (n + 0.25))
+        approximate = 2.0 * scipy_stats.norm.ppf((n - 0.375) / (n + 0.25))
+    small = (n >= 2) & (n <= WAN_EXACT_RANGE_MAX_N) & (n == np.floor(n))
+    exact = _expected_normal_ranges()[np.where(small, n, 0).astype(int)]
+    return np.where(small, exact, approximate)
 
 
 def _wan_iqr_divisor(n: np.ndarray) -> np.ndarray:
@@ -132,7 +158,7 @@ def sd_from_iqr(q1: ArrayLike, q3: ArrayLike, n: ArrayLike) -> np.ndarray:
 
 def sd_from_range(minimum: ArrayLike, maximum: ArrayLike, n: ArrayLike) -> np.ndarray:
     """Estimated SD from the range (assumes a normal distribution)."""
-    # Wan et al. 2014 eq. 7 (scenario S1)
+    # Wan et al. 2014 eq. 7 with Table 1 for n <= 50 (scenario S1)
     minimum, maximum, n = map(_float_array, (minimum, maximum, n))
     return _divide_positive(maximum - minimum, _wan_range_divisor(n))
 

@@ -89,8 +89,7 @@ def test_sd_from_se_and_ci_give_nan_for_impossible_n():
 
 
 def _expected_range_of_standard_normal(n: int) -> float:
-    # E[range] = integral of 1 - (1-Phi(x))^n - Phi(x)^n over the real line (order statistics);
-    # these are the d2 constants of quality control tables (e.g. d2(5) = 2.326).
+    # E[range] = integral of 1 - (1-Phi(x))^n - Phi(x)^n over the real line (order statistics)
     def integrand(x):
         return 1 - (1 - scipy_stats.norm.cdf(x)) ** n - scipy_stats.norm.cdf(x) ** n
 
@@ -98,16 +97,21 @@ def _expected_range_of_standard_normal(n: int) -> float:
 
 
 @pytest.mark.parametrize(
-    ("n", "d2_from_tables"),
-    # d2 constants, e.g. Montgomery, Introduction to Statistical Quality Control, Appendix VI
-    # (values from memory; the test also recomputes them by integration)
-    [(5, 2.326), (10, 3.078), (25, 3.931)],
+    ("n", "xi_table_1"),
+    # Wan et al. 2014, Table 1 (values of xi(n) for n <= 50, printed to 3 decimals); the same
+    # numbers are the d2 constants of quality-control tables (e.g. Minitab's d2 table)
+    [(2, 1.128), (3, 1.693), (5, 2.326), (10, 3.078), (17, 3.588), (25, 3.931), (50, 4.498)],
 )
-def test_range_divisor_matches_expected_normal_range(n, d2_from_tables):
-    d2 = _expected_range_of_standard_normal(n)
-    assert d2 == pytest.approx(d2_from_tables, abs=6e-4)
-    # Wan et al. 2014 eq. 7 approximates E[range]/sigma; their Table 1 shows it close for n >= 5
-    assert sd_from_range(0.0, d2, n) == pytest.approx(1.0, rel=0.015)
+def test_range_divisor_reproduces_wan_table_1(n, xi_table_1):
+    assert 1.0 / sd_from_range(0.0, 1.0, n) == pytest.approx(xi_table_1, abs=5e-4)
+
+
+@pytest.mark.parametrize("n", [51, 100, 400])
+def test_range_divisor_above_table_uses_close_approximation(n):
+    # Wan et al. 2014 eq. 7 beyond Table 1; checked against the exact expected range
+    assert sd_from_range(0.0, _expected_range_of_standard_normal(n), n) == pytest.approx(
+        1.0, rel=5e-3
+    )
 
 
 def test_iqr_divisor_tends_to_normal_iqr():
