@@ -385,3 +385,17 @@ def test_negative_scale_swaps_bounds_and_keeps_sd_positive():
     assert out["ci_low"] < out["ci_high"] and out["sd"] == 2.0
     with pytest.raises(ConfigError):
         convert_summary_units(frame, scale=0.0)
+
+
+def test_normalise_summaries_names_every_problem_of_a_row():
+    rows = [
+        {"mean": 5, "sd": -1, "n": 0},
+        {"mean": 5, "sd": 1, "n": 10},
+        {"mean": 5, "sd": -1, "n": 0},
+    ]
+    out = normalise_summaries(pd.DataFrame(rows))
+    assert out.loc[0, "message"].split("; ") == [
+        "n must be a whole number of at least 1",
+        "sd is negative",
+    ]
+    assert out.loc[2, "message"] == out.loc[0, "message"] and out.loc[1, "message"] == ""
