@@ -1,6 +1,6 @@
 """Read unit spellings from trait tables and turn them into one affine conversion per unit pair.
 
-This module is the only place that talks to pint. It owns the single unit registry, the
+This module is the only place that calls pint. It owns the single unit registry, the
 normaliser that rewrites spellings pint misreads (`g m-2`, `deg C`, `per day`, `µ`), the alias
 table in `harmonize/data/unit_aliases.yaml` (case- and dimension-aware), and `conversion()`,
 which gives `canonical = value * scale + offset` once per (raw unit, canonical unit) pair so
@@ -145,6 +145,7 @@ _TOKEN = re.compile(r"(?<![\w.])([A-Za-z_]+)(?![\w])")
 # 'umol/m**2 s': after '/' one factor, then a space and another factor with no operator
 _SLASH_THEN_PRODUCT = re.compile(r"/\s*[^\s/*()]+(?:\s*\*\*\s*[-+]?[\d.]+)?\s+(?=[A-Za-z_(\d])")
 _NESTED_GROUP = re.compile(r"\([^()]*\)")
+_STRAY_CHARACTER = re.compile(r"[^\w\s*/().+\-%]")
 
 
 def _clean_characters(raw: str) -> str:
@@ -259,6 +260,12 @@ def _read(raw: str, expected_key: str | None) -> _Reading | UnitProblem:
         return UnitProblem(
             RejectReason.MISSING_UNIT, f"no unit given ({raw!r}); declare the unit in the mapping"
         )
+    if stray := _STRAY_CHARACTER.search(text):
+        # pint's tokenizer silently drops characters such as '!' or ';' ('g !!' -> gram)
+        return UnitProblem(
+            RejectReason.UNKNOWN_UNIT,
+            f"unit {raw!r} contains {stray.group(0)!r}, which is not part of a unit",
+        )
     if _SLASH_THEN_PRODUCT.search(_flatten_groups(text)):
         return UnitProblem(RejectReason.AMBIGUOUS_UNIT, _ambiguous_slash_message(raw))
     flags = tuple(f"chemical-qualifier:{q}" for q in qualifiers)
@@ -348,6 +355,7 @@ def _canonical(canonical_unit: str) -> pint.Unit:
     """The trait's canonical unit; an unreadable one is a vocabulary error, not a data problem."""
     result = _read(canonical_unit, None)
     if isinstance(result, UnitProblem):
+        # an ambiguous spelling ('C', 'N') is refused here too: the vocabulary must say 'newton'
         raise ConfigError(
             f"canonical unit {canonical_unit!r} cannot be used: {result.message}",
             hint="fix the 'unit' of this trait in the vocabulary",
