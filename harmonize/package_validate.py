@@ -33,7 +33,7 @@ import re
 from collections.abc import Iterator
 from contextlib import contextmanager
 from copy import deepcopy
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import Any
 from urllib.parse import urlparse
@@ -152,18 +152,20 @@ def validate_package(folder: Path, *, max_errors: int = 1000) -> ValidationResul
     try:
         descriptor = _load_descriptor(folder)
     except ConfigError as error:
-        return _result([ValidationProblem("", None, None, "package-error", str(error))])
+        return _result([_problem("", "package-error", str(error))])
     _check_descriptor_paths(folder, descriptor)
 
     resources = descriptor.get("resources")
     if not isinstance(resources, list) or not all(isinstance(r, dict) for r in resources):
         message = "`resources` must be a list of objects"
-        return _result([ValidationProblem("", None, None, "package-error", message)])
+        return _result([_problem("", "package-error", message)])
     parquet_names = {r.get("name") for r in resources if _is_parquet(r)}
 
-    problems = _validate_with_frictionless(folder, descriptor, parquet_names, max_errors)
-    if any(p.type == "package-error" for p in problems):
-        return _result(problems)  # the descriptor itself is broken: data checks would mislead
+    problems, descriptor_valid = _validate_with_frictionless(
+        folder, descriptor, parquet_names, max_errors
+    )
+    if not descriptor_valid:
+        return _result(problems[:max_errors])  # data checks against a broken schema mislead
     for resource in resources:
         if len(problems) >= max_errors:
             break
@@ -172,7 +174,9 @@ def validate_package(folder: Path, *, max_errors: int = 1000) -> ValidationResul
     for resource in resources:
         if len(problems) >= max_errors:
             break
-        problems += _foreign_keys_across_formats(folder, resource, resources, parquet_names)
+        problems += _foreign_keys_across_formats(
+            folder, resource, resources, parquet_names, max_errors - len(problems)
+        )
     return _result(problems[:max_errors])
 
 
@@ -211,7 +215,8 @@ def _hardened_frictionless() -> Iterator[None]:
 
 def _validate_with_frictionless(
     folder: Path, descriptor: dict[str, Any], parquet_names: set[Any], max_errors: int
-) -> list[ValidationProblem]:
+) -> tuple[list[ValidationProblem], bool]:
+    """Problems found by frictionless, and whether the descriptor itself was valid."""
     text_descriptor = deepcopy(descriptor)
     for resource in text_descriptor["resources"]:
         schema = resource.get("schema")
@@ -230,7 +235,7 @@ def _validate_with_frictionless(
             package = Package(text_descriptor, basepath=str(folder))
             package.to_descriptor(validate=True)
         except FrictionlessException as error:
-            return _translate_exception(error)
+            return _translate_exception(error), False
         for resource in package.resources:
             if resource.name in parquet_names or len(problems) >= max_errors:
                 continue
@@ -239,10 +244,10 @@ def _validate_with_frictionless(
             except FrictionlessException as error:
                 problems += _translate_exception(error, resource.name)
                 continue
-            for task in report.tasks:
-                problems += [_translate_error(task.name or resource.name, e) for e in task.errors]
-            problems += [_translate_error(resource.name, e) for e in report.errors]
-    return problems
+            key = ",".join(resource.schema.primary_key) if resource.schema else None
+            for error in [e for task in report.tasks for e in task.errors] + report.errors:
+                problems.append(_translate_error(resource.name, error, primary_key=key))
+    return problems, True
 
 
 def _translate_exception(
@@ -257,10 +262,14 @@ def _translate_exception(
     return found or [_translate_error(resource, error.error)]
 
 
-def _translate_error(resource: str, error: Any) -> ValidationProblem:
+def _translate_error(
+    resource: str, error: Any, *, primary_key: str | None = None
+) -> ValidationProblem:
     field = getattr(error, "field_name", None)
     if field is None and getattr(error, "field_names", None):
         field = ",".join(error.field_names)
+    if field is None and error.type == "primary-key":
+        field = primary_key or None
     return ValidationProblem(
         resource=resource,
         row=getattr(error, "row_number", None),
@@ -289,6 +298,12 @@ _TYPE_CHECKS = {
 }
 
 
+def _problem(
+    resource: str, kind: str, message: str, *, row: int | None = None, field: str | None = None
+) -> ValidationProblem:
+    return ValidationProblem(resource=resource, row=row, field=field, type=kind, message=message)
+
+
 def _validate_parquet(
     folder: Path, resource: dict[str, Any], limit: int
 ) -> list[ValidationProblem]:
@@ -299,45 +314,30 @@ def _validate_parquet(
     try:
         parquet = pq.ParquetFile(path)
     except (OSError, pa.ArrowException) as error:
-        return [
-            ValidationProblem(name, None, None, "source-error", f"cannot read Parquet ({error})")
-        ]
+        return [_problem(name, "source-error", f"cannot read Parquet ({error})")]
     problems += _size_and_hash(name, path, resource)
 
     fields = [f for f in schema.get("fields", []) if isinstance(f, dict) and "name" in f]
     declared = [f["name"] for f in fields]
     stored = parquet.schema_arrow.names
-    problems += [
-        ValidationProblem(name, None, n, "missing-label", f'field "{n}" is not in the file')
-        for n in declared
-        if n not in stored
-    ]
-    problems += [
-        ValidationProblem(name, None, n, "extra-label", f'column "{n}" is not in the schema')
-        for n in stored
-        if n not in declared
-    ]
+    for n in declared:
+        if n not in stored:
+            problems.append(_problem(name, "missing-label", "not in the file", field=n))
+    for n in stored:
+        if n not in declared:
+            problems.append(_problem(name, "extra-label", "not in the schema", field=n))
     if not problems and stored != declared:
-        problems.append(
-            ValidationProblem(
-                name,
-                None,
-                None,
-                "incorrect-label",
-                f"columns are in the order {stored}, not {declared}",
-            )
-        )
+        message = f"columns are in the order {stored}, not {declared}"
+        problems.append(_problem(name, "incorrect-label", message))
     missing_values = schema.get("missingValues", [""])
     primary_key = _as_list(schema.get("primaryKey"))
     for field in fields:
-        if field["name"] not in stored or len(problems) >= limit:
-            continue
-        column = parquet.read(columns=[field["name"]]).column(0)
-        problems += _check_column(name, field, column, missing_values, primary_key)
+        if field["name"] in stored and len(problems) < limit:
+            column = parquet.read(columns=[field["name"]]).column(0)
+            problems += _check_column(name, field, column, missing_values, primary_key, limit)
     if primary_key and all(k in stored for k in primary_key) and len(problems) < limit:
-        problems += _check_primary_key(
-            name, parquet.read(columns=primary_key).to_pandas(), primary_key
-        )
+        keys = parquet.read(columns=primary_key).to_pandas()
+        problems += _check_primary_key(name, keys, primary_key, limit)
     return problems[:limit]
 
 
@@ -345,49 +345,39 @@ def _open_parts(
     folder: Path, resource: dict[str, Any]
 ) -> tuple[Path, dict[str, Any], list[ValidationProblem]]:
     name = str(resource.get("name", ""))
-    path = resource.get("path")
+    path, schema = resource.get("path"), resource.get("schema")
     if not isinstance(path, str):
-        problem = ValidationProblem(
-            name, None, None, "resource-error", "a Parquet resource needs one `path`"
-        )
-        return folder, {}, [problem]
-    schema = resource.get("schema")
+        return folder, {}, [_problem(name, "resource-error", "a Parquet resource needs one path")]
     if isinstance(schema, str):  # a schema file inside the folder (already checked as safe)
         try:
             schema = json.loads((folder / schema).read_text(encoding="utf-8"))
         except (OSError, UnicodeDecodeError, json.JSONDecodeError) as error:
-            problem = ValidationProblem(
-                name, None, None, "schema-error", f"cannot read schema ({error})"
-            )
-            return folder, {}, [problem]
+            return folder, {}, [_problem(name, "schema-error", f"cannot read schema ({error})")]
     if not isinstance(schema, dict):
-        problem = ValidationProblem(name, None, None, "schema-error", "the resource has no schema")
-        return folder, {}, [problem]
+        return folder, {}, [_problem(name, "schema-error", "the resource has no schema")]
     return folder / path, schema, []
 
 
 def _size_and_hash(name: str, path: Path, resource: dict[str, Any]) -> list[ValidationProblem]:
     problems = []
-    declared_bytes = resource.get("bytes")
-    if declared_bytes is not None and declared_bytes != path.stat().st_size:
-        message = f"declared {declared_bytes} bytes, the file has {path.stat().st_size}"
-        problems.append(ValidationProblem(name, None, None, "byte-count", message))
+    size, declared_bytes = path.stat().st_size, resource.get("bytes")
+    if declared_bytes is not None and declared_bytes != size:
+        message = f"declared {declared_bytes} bytes, the file has {size}"
+        problems.append(_problem(name, "byte-count", message))
     declared_hash = resource.get("hash")
     if isinstance(declared_hash, str) and declared_hash:
         # Data Package v1 "hash": "<algorithm>:<hex>", a bare hex digest being MD5.
         algorithm, _, expected = declared_hash.rpartition(":")
         algorithm = algorithm or "md5"
         if algorithm not in hashlib.algorithms_available:
-            message = f"unknown hash algorithm {algorithm!r}"
-            problems.append(ValidationProblem(name, None, None, "hash-count", message))
-        else:
-            digest = hashlib.new(algorithm)
-            with path.open("rb") as stream:
-                for block in iter(lambda: stream.read(1 << 20), b""):
-                    digest.update(block)
-            if digest.hexdigest() != expected.lower():
-                message = f"declared {algorithm} {expected}, the file has {digest.hexdigest()}"
-                problems.append(ValidationProblem(name, None, None, "hash-count", message))
+            return problems + [_problem(name, "hash-count", f"unknown algorithm {algorithm!r}")]
+        digest = hashlib.new(algorithm)
+        with path.open("rb") as stream:
+            for block in iter(lambda: stream.read(1 << 20), b""):
+                digest.update(block)
+        if digest.hexdigest() != expected.lower():
+            message = f"declared {algorithm} {expected}, the file has {digest.hexdigest()}"
+            problems.append(_problem(name, "hash-count", message))
     return problems
 
 
@@ -403,18 +393,24 @@ def _missing_mask(column: pa.ChunkedArray, missing_values: list[Any]) -> pa.Chun
     return mask
 
 
+def _first_rows(mask: pa.ChunkedArray | pa.Array, limit: int) -> pa.Array:
+    """Positions (0-based) of the first `limit` true cells."""
+    return pc.indices_nonzero(mask).slice(0, limit)
+
+
 def _check_column(
     resource: str,
     field: dict[str, Any],
     column: pa.ChunkedArray,
     missing_values: list[Any],
     primary_key: list[str],
+    limit: int,
 ) -> list[ValidationProblem]:
     name, declared_type = field["name"], field.get("type", "any")
     is_expected = _TYPE_CHECKS.get(declared_type)
     if is_expected is not None and not is_expected(column.type):
         message = f'stored as {column.type}, but the schema says "{declared_type}"'
-        return [ValidationProblem(resource, None, name, "type-error", message)]
+        return [_problem(resource, "type-error", message, field=name)]
     constraints = field.get("constraints") or {}
     missing = _missing_mask(column, missing_values)
     problems = []
@@ -422,10 +418,8 @@ def _check_column(
     # required; frictionless reports such cells too).
     if constraints.get("required") or name in primary_key:
         problems += [
-            ValidationProblem(
-                resource, row, name, "constraint-error", f'field "{name}" is required'
-            )
-            for row in _rows(missing)
+            _problem(resource, "constraint-error", "a value is required", row=i, field=name)
+            for i in _first_rows(missing, limit).to_pylist()
         ]
     enum = constraints.get("enum")
     if isinstance(enum, list) and enum:
@@ -433,43 +427,34 @@ def _check_column(
             allowed = pa.array(enum).cast(column.type)
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
             message = f"enum {enum} cannot be compared with a {column.type} column"
-            return problems + [ValidationProblem(resource, None, name, "schema-error", message)]
+            return problems + [_problem(resource, "schema-error", message, field=name)]
         outside = pc.and_(pc.invert(missing), pc.invert(pc.is_in(column, value_set=allowed)))
-        indices = pc.indices_nonzero(outside)
-        values = column.take(indices).to_pylist()
+        indices = _first_rows(outside, limit)
         problems += [
-            ValidationProblem(
-                resource,
-                int(index) + _FIRST_DATA_ROW,
-                name,
-                "constraint-error",
-                f'value {value!r} of field "{name}" is not one of {enum}',
+            _problem(
+                resource, "constraint-error", f"{value!r} is not one of {enum}", row=i, field=name
             )
-            for index, value in zip(indices.to_pylist(), values, strict=True)
+            for i, value in zip(indices.to_pylist(), column.take(indices).to_pylist(), strict=True)
         ]
-    return problems
-
-
-def _rows(mask: pa.ChunkedArray) -> list[int]:
-    return [int(i) + _FIRST_DATA_ROW for i in pc.indices_nonzero(mask).to_pylist()]
+    return [replace(p, row=p.row + _FIRST_DATA_ROW) if p.row is not None else p for p in problems]
 
 
 def _check_primary_key(
-    resource: str, keys: pd.DataFrame, columns: list[str]
+    resource: str, keys: pd.DataFrame, columns: list[str], limit: int
 ) -> list[ValidationProblem]:
-    first_row = (
-        keys.reset_index().groupby(columns, sort=False, dropna=False)["index"].transform("min")
-    )
+    first = keys.reset_index().groupby(columns, sort=False, dropna=False)["index"].transform("min")
     repeated = keys.duplicated(keep="first").to_numpy()
     return [
-        ValidationProblem(
+        _problem(
             resource,
-            int(index) + _FIRST_DATA_ROW,
-            ",".join(columns),
             "primary-key",
-            f"primary key {columns} repeats row {int(first) + _FIRST_DATA_ROW}",
+            f"the key {columns} repeats row {int(earlier) + _FIRST_DATA_ROW}",
+            row=int(index) + _FIRST_DATA_ROW,
+            field=",".join(columns),
         )
-        for index, first in zip(keys.index[repeated], first_row[repeated], strict=True)
+        for index, earlier in zip(
+            keys.index[repeated][:limit], first[repeated][:limit], strict=True
+        )
     ]
 
 
@@ -477,13 +462,17 @@ def _check_primary_key(
 
 
 def _foreign_keys_across_formats(
-    folder: Path, resource: dict[str, Any], resources: list[dict[str, Any]], parquet_names: set[Any]
+    folder: Path,
+    resource: dict[str, Any],
+    resources: list[dict[str, Any]],
+    parquet_names: set[Any],
+    limit: int,
 ) -> list[ValidationProblem]:
-    schema = resource.get("schema")
+    schema, name = resource.get("schema"), str(resource.get("name", ""))
     if not isinstance(schema, dict):
         return []
     by_name = {r.get("name"): r for r in resources}
-    problems = []
+    problems: list[ValidationProblem] = []
     for key in schema.get("foreignKeys") or []:
         target_name = _referenced(key)
         target_name = resource.get("name") if target_name == "" else target_name
@@ -491,38 +480,33 @@ def _foreign_keys_across_formats(
             continue  # frictionless checked it
         fields = _as_list(key.get("fields"))
         target_fields = _as_list(key["reference"].get("fields"))
-        target = by_name.get(target_name)
-        name = str(resource.get("name", ""))
+        target, where = by_name.get(target_name), ",".join(fields)
         if target is None or len(fields) != len(target_fields):
-            message = f"foreign key {fields} refers to a missing resource or has mismatched fields"
-            problems.append(
-                ValidationProblem(name, None, ",".join(fields), "schema-error", message)
-            )
+            message = f"foreign key {fields} names a missing resource or mismatched fields"
+            problems.append(_problem(name, "schema-error", message, field=where))
             continue
         try:
             child = _key_columns(folder, resource, fields)
             parent = _key_columns(folder, target, target_fields)
         except (OSError, KeyError, pa.ArrowException) as error:
             message = f"cannot read key columns ({error})"
-            problems.append(
-                ValidationProblem(name, None, ",".join(fields), "source-error", message)
-            )
+            problems.append(_problem(name, "source-error", message, field=where))
             continue
         complete = child.notna().all(axis=1).to_numpy()  # a missing foreign-key cell is not checked
         parent.columns = fields
         found = pd.MultiIndex.from_frame(child).isin(pd.MultiIndex.from_frame(parent))
-        orphans = child[complete & ~found]
+        orphans = child[complete & ~found].head(limit)
         problems += [
-            ValidationProblem(
+            _problem(
                 name,
-                int(index) + _FIRST_DATA_ROW,
-                ",".join(fields),
                 "foreign-key",
                 f'values {list(values)} not found in "{target_name}" {target_fields}',
+                row=int(index) + _FIRST_DATA_ROW,
+                field=where,
             )
             for index, values in zip(orphans.index, orphans.itertuples(index=False), strict=True)
         ]
-    return problems
+    return problems[:limit]
 
 
 def _key_columns(folder: Path, resource: dict[str, Any], columns: list[str]) -> pd.DataFrame:
@@ -532,17 +516,16 @@ def _key_columns(folder: Path, resource: dict[str, Any], columns: list[str]) -> 
         table = pq.read_table(path, columns=columns)
     else:
         schema = resource.get("schema") if isinstance(resource.get("schema"), dict) else {}
-        table = pa_csv.read_csv(
-            path,
-            convert_options=pa_csv.ConvertOptions(
-                include_columns=columns,
-                column_types={c: pa.string() for c in columns},
-                null_values=[str(v) for v in schema.get("missingValues", [""])],
-                strings_can_be_null=True,
-            ),
+        options = pa_csv.ConvertOptions(
+            include_columns=columns,
+            column_types={c: pa.string() for c in columns},
+            null_values=[str(v) for v in schema.get("missingValues", [""])],
+            strings_can_be_null=True,
         )
-    table = pa.table([pc.cast(table.column(c), pa.string()) for c in columns], names=columns)
-    return table.to_pandas()
+        table = pa_csv.read_csv(path, convert_options=options)
+    return pa.table(
+        [pc.cast(table.column(c), pa.string()) for c in columns], names=columns
+    ).to_pandas()
 
 
 def _as_list(value: object) -> list[str]:
