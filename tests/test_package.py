@@ -16,6 +16,7 @@ import shutil
 import socket
 import subprocess
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 import jsonschema
@@ -323,7 +324,7 @@ def test_descriptor_carries_profiles_levels_roles_and_the_description(tmp_path, 
 
 
 def test_created_and_field_units_are_written_when_given(tmp_path):
-    info = PackageInfo(**{**INFO.__dict__, "created": "2026-01-01T00:00:00Z"})
+    info = replace(INFO, created="2026-01-01T00:00:00Z")
     write_package(
         invented_frames(),
         tmp_path,
@@ -365,7 +366,7 @@ def test_empty_strings_are_missing_in_both_formats(tmp_path):
     ("change", "error"),
     [
         ({"fmt": "xlsx"}, ConfigError),
-        ({"info": PackageInfo(**{**INFO.__dict__, "name": "Has Space"})}, ConfigError),
+        ({"info": replace(INFO, name="Has Space")}, ConfigError),
         ({"tables": {"observations": pd.DataFrame()}}, BuildError),
         ({"field_units": {"traits": {"no_such_column": "g"}}}, BuildError),
     ],
