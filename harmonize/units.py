@@ -1,6 +1,6 @@
 """Read unit spellings from trait tables and turn them into one affine conversion per unit pair.
 
-This module is the only place that calls pint. It owns the single unit registry, the
+This module is the adapter to pint. It owns the single unit registry, the
 normaliser that rewrites spellings pint misreads (`g m-2`, `deg C`, `per day`, `µ`), the alias
 table in `harmonize/data/unit_aliases.yaml` (case- and dimension-aware), and `conversion()`,
 which gives `canonical = value * scale + offset` once per (raw unit, canonical unit) pair so
@@ -318,7 +318,7 @@ def _settle_by_dimension(
         except Exception:  # noqa: BLE001 - an unreadable reading is simply not a candidate
             continue
         tried.append(f"{format(unit, 'C')} ({unit.dimensionality})")
-        if expected_key is None or str(unit.dimensionality) == expected_key:
+        if expected_key is None or _dimension_key(unit) == expected_key:
             fitting.append((unit, choice))
     notes = "; ".join(table.aliases[t].note for t in ambiguous if table.aliases[t].note)
     # Without a trait unit nothing can settle the spelling, even if only one reading parses.
@@ -342,6 +342,11 @@ def _examples(ambiguous: list[str]) -> str:
     table = _alias_table()
     readings = [r for t in ambiguous for r in table.aliases[t].readings if not r.startswith("{")]
     return "e.g. " + " or ".join(repr(r) for r in readings)
+
+
+def _dimension_key(unit: pint.Unit) -> str:
+    """Dimensionality as text with a fixed factor order, usable as a cache key."""
+    return str(pint.util.UnitsContainer(dict(sorted(dict(unit.dimensionality).items()))))
 
 
 def _substitute(reading: str) -> str:
@@ -368,7 +373,7 @@ def _reading_for(text: str | None, expected_unit: str | None) -> _Reading:
         raise UnitProblem(RejectReason.MISSING_UNIT, "no unit given; declare it in the mapping")
     expected_key = None
     if expected_unit is not None:
-        expected_key = str(_canonical(expected_unit).dimensionality)
+        expected_key = _dimension_key(_canonical(expected_unit))
     result = _read(str(text), expected_key)
     if isinstance(result, UnitProblem):
         raise UnitProblem(result.reason, result.message)  # fresh object: no shared traceback
@@ -488,5 +493,18 @@ def conversion(raw_unit: str | None, canonical_unit: str) -> Conversion:
             f"unit {canonical_unit!r} ({target.dimensionality}); check the column or the unit",
             source_text,
         )
-    scale, offset = _affine(reading.unit, target)
-    return Conversion(scale, offset, source_text, None, "", reading.flags)
+    source, flags = reading.unit, reading.flags
+    if _difference_unit(source) != source and any(n.startswith("delta_") for n in target._units):
+        # a trait that is a temperature difference (tolerance breadth) recorded as 'degC':
+        # the values are differences, so they take the scale and no offset
+        source, flags = _difference_unit(source), flags + ("temperature-difference",)
+    try:
+        scale, offset = _affine(source, target)
+    except (pint.DimensionalityError, pint.OffsetUnitCalculusError) as error:
+        return _failed(
+            RejectReason.DIMENSION_MISMATCH,
+            f"unit {raw_unit!r} cannot be converted to trait unit {canonical_unit!r}: {error}; "
+            "a temperature difference cannot become an absolute temperature",
+            source_text,
+        )
+    return Conversion(scale, offset, source_text, None, "", flags)

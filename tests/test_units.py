@@ -117,6 +117,15 @@ def test_temperature_rate_converts_as_a_difference():
     assert per_hour.offset == 0.0
 
 
+def test_difference_trait_reads_plain_temperature_units_as_differences():
+    # a tolerance breadth of 9 degF is 5 K (NIST SP 811 (2008), B.9: 1 degF interval = 5/9 K)
+    breadth = conversion("degF", "delta_degC")
+    assert breadth.ok and "temperature-difference" in breadth.flags
+    assert breadth.apply(np.array([9.0])) == pytest.approx([5.0])
+    # the reverse has no meaning: a difference is not a temperature on a scale
+    assert conversion("delta_degC", "degC").reason is RejectReason.DIMENSION_MISMATCH
+
+
 @settings(max_examples=60, deadline=None)
 @given(
     pair=st.sampled_from(
