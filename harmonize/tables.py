@@ -344,5 +344,5 @@ def conform(frame: pd.DataFrame, resource: Resource) -> pd.DataFrame:
         if column.name in frame.columns:
             out[column.name] = frame[column.name].astype(dtype)
         else:
-            out[column.name] = pd.Series(pd.NA, index=frame.index, dtype=dtype)
+            out[column.name] = pd.Series(None, index=frame.index, dtype=dtype)
     return pd.DataFrame(out, index=frame.index).reset_index(drop=True)
