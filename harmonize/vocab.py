@@ -271,8 +271,9 @@ def _read_file(path: Path, raw: bytes) -> list[Term]:
         mark = getattr(error, "problem_mark", None)
         line = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
         problem = getattr(error, "problem", None) or str(error)
+        entry = _entry_before(text, mark.line if mark else None)
         raise VocabularyError(
-            f"not valid YAML: {line}{problem}",
+            f"not valid YAML{entry}: {line}{problem}",
             file=where,
             hint="check indentation, colons and quoting near that line",
         ) from error
@@ -289,6 +290,18 @@ def _read_file(path: Path, raw: bytes) -> list[Term]:
         _term(entry, path.name, where, lines[i] if i < len(lines) else None)
         for i, entry in enumerate(data)
     ]
+
+
+def _entry_before(text: str, line_index: int | None) -> str:
+    """' in entry 'x'' for the last '- id: x' at or above a line, to name it in YAML errors."""
+    if line_index is None:
+        return ""
+    found = ""
+    for line in text.splitlines()[: line_index + 1]:
+        m = re.match(r"^\s*-\s*id:\s*['\"]?([^'\"#\s]+)", line)
+        if m:
+            found = f" in entry '{m.group(1)}'"
+    return found
 
 
 def _term(entry: Any, file_name: str, where: str, line: int | None) -> Term:
@@ -378,7 +391,7 @@ def _text_list(value: Any, key: str, fail) -> list[str]:
     for item in value:
         if not isinstance(item, str) or not item.strip():
             hint = "quote it" + (
-                " (YAML reads bare yes/no/on/off as true/false)" if isinstance(item, bool) else ""
+                "; YAML reads bare yes/no/on/off as true/false" if isinstance(item, bool) else ""
             )
             raise fail(f"{key} holds {item!r}, which is not non-empty text", hint)
     return [item.strip() for item in value]
