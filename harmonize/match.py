@@ -1,0 +1,737 @@
+"""Match trait names as written in source tables to vocabulary terms.
+
+What it does: normalises each raw name (Unicode, case, separators, camelCase) and pulls out
+the unit and statistic it carries ('SVL_mm_sd' -> 'svl', unit 'mm', statistic 'sd'); looks
+the rest up among the vocabulary's ids, labels and synonyms; scores what is left with
+rapidfuzz; and returns one `NameMatch` per raw name with a status: accepted (safe to use
+unattended), review (a person must look) or rejected (a person said no).
+
+Precision comes before recall: a wrong automatic match silently corrupts a dataset, a missed
+one costs a reviewer a minute. Hence ambiguous synonyms are never accepted; a fuzzy match
+needs a high score *and* a clear margin over the best other trait; a name word that is itself
+a vocabulary word but absent from the candidate ('tail' against 'total length') is read as a
+different meaning, not a typo; a misspelt word is corrected only when exactly one vocabulary
+word is one edit away; and a unit in the name whose dimension does not fit a term's canonical
+unit demotes that term.
+
+What it leaves to others: reading and writing decisions (`harmonize.review`), unit parsing
+(`harmonize.units`), the vocabulary (`harmonize.vocab`). This is the only module that
+imports rapidfuzz.
+"""
+
+from __future__ import annotations
+
+import re
+import unicodedata
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from rapidfuzz import fuzz, process
+from rapidfuzz.distance import OSA
+
+from harmonize.errors import ConfigError
+
+if TYPE_CHECKING:
+    from harmonize.review import Decision
+    from harmonize.vocab import Term, Vocabulary
+
+SHORTLIST_SIZE = 12  # choice strings re-scored per name; the cheap score bounds all others
+LEXICON_PENALTY = 15.0  # per name word that is a vocabulary word missing from the candidate
+UNIT_PENALTY = 25.0  # the name's unit has another dimension than the term's canonical unit
+CORRECTION_COST = 4.0  # per misspelt word corrected: one typo still passes, three do not
+_CHUNK = 2048  # names per cdist call: bounds the score matrices to a few MB
+# The three constants above are our own choices, tuned on tests/data/messy_names.csv;
+# no published source.
+
+
+@dataclass(frozen=True)
+class MatchSettings:
+    """Score thresholds on a 0-100 scale; the project file may override them."""
+
+    accept: float = 92.0
+    review: float = 75.0
+    margin: float = 4.0
+
+    def __post_init__(self) -> None:
+        if not 0 <= self.review <= self.accept <= 100:
+            raise ConfigError(
+                f"match thresholds must satisfy 0 <= review ({self.review}) <= "
+                f"accept ({self.accept}) <= 100",
+                hint="check the fuzzy-match thresholds in harmonize.yaml",
+            )
+        if self.margin < 0:
+            raise ConfigError(f"match margin must not be negative, got {self.margin}")
+
+
+@dataclass(frozen=True)
+class NameHints:
+    """A raw name reduced to its trait words, plus the unit and statistic found in it."""
+
+    normalised: str
+    unit_hint: str | None
+    statistic_hint: str | None
+
+
+@dataclass(frozen=True)
+class NameMatch:
+    """What one raw name was matched to, how, and whether a person must look at it."""
+
+    name: str
+    normalised: str
+    trait_id: str | None
+    method: str  # exact | synonym | fuzzy | manual | rejected | unmatched
+    score: float
+    status: str  # accepted | review | rejected
+    runner_up: str | None
+    runner_up_score: float | None
+    unit_hint: str | None
+    statistic_hint: str | None
+    note: str
+
+
+# --------------------------------------------------------------------------- word tables
+
+
+def _table(text: str) -> dict[str, str]:
+    """'code = phrase | phrase' lines -> {phrase: code}."""
+    out = {}
+    for line in text.strip().splitlines():
+        code, phrases = line.split("=")
+        out.update({p.strip(): code.strip() for p in phrases.split("|")})
+    return out
+
+
+# Statistic phrases -> codes of the population_summaries columns. 'range' keeps its own code:
+# a 'range' column may hold 'min-max' text or the width.
+_STATISTIC_PHRASES = {
+    tuple(p.split()): code
+    for p, code in _table("""
+        mean = mean | avg | average | mittelwert | moyenne | media | promedio
+        sd = sd | std | stdev | stddev | sdev | s d | std dev | st dev | standard deviation
+        se = se | sem | stderr | s e | s e m | std err | std error | standard error
+        n = n | sample size | n ind | n obs
+        min = min | minimum
+        max = max | maximum
+        median = median | mediane | mediana
+        q1 = q1 | p25 | lower quartile | first quartile | 1st quartile
+        q3 = q3 | p75 | upper quartile | third quartile | 3rd quartile
+        ci_low = lcl | ci low | ci lo | ci lower | lower ci | low ci | lower cl
+        ci_high = ucl | ci high | ci hi | ci upper | upper ci | high ci | upper cl
+        range = range""").items()
+}
+
+# Words of lab spreadsheets (English abbreviations with one reading in trait tables; German,
+# French, Spanish, Portuguese) -> the English words of the vocabulary. Applied to both sides
+# before scoring, so a vocabulary synonym in another language still matches itself.
+# Keys are accent-free and lower-case.
+_WORDS = _table("""
+        temperature = temp | temperatur | temperatura
+        length = len | lgth | lngth | lange | longueur | longitud | largo | comprimento
+        weight = wt | wgt | gewicht | poids | peso
+        width = wdth | breite | largeur | ancho | anchura | largura
+        height = hgt | hohe | hauteur | altura
+        diameter = diam | durchmesser | diametre
+        volume = vol
+        frequency = freq
+        number = num | nr | nb | #
+        critical = crit | kritisch | kritische | critique | critica | critico
+        metabolic = met | stoffwechsel | metabolique | metabolica | metabolico
+        assimilation = assim
+        efficiency = eff
+        point = pt
+        respiratory = resp
+        evaporative = evap
+        performance = perf
+        preferred = pref | vorzugs | bevorzugte | preferee | preferentielle | preferida
+        reproductive = repro
+        incubation = incub
+        specific = spec
+        body = korper | rumpf | corporelle | corporel | corporal
+        mass = masse | masa | massa
+        head = kopf | tete | cabeza | cabeca
+        tail = schwanz | queue | cola | cauda
+        wing = flugel | aile | ala
+        clutch = gelege | ponte | puesta | nidada
+        size = grosse | taille | tamano | tamanho
+        egg = ei | oeuf | huevo
+        eggs = eier | oeufs | huevos
+        snout = schnauze | museau | hocico
+        vent = kloake | cloaque | cloaca
+        hindlimb = hinterbein
+        forelimb = vorderbein
+        limb = bein | patte | pata
+        foot = fuss
+        dry = trocken | seche | seca
+        fresh = frisch | fraiche | fresca
+        thermal = thermisch | thermische | thermique | termica | termico
+        oxygen = sauerstoff | oxygene | oxigeno | oxigenio
+        consumption = verbrauch | consommation | consumo
+        forearm = unterarm | antebrazo
+        eye = auge | oeil | ojo
+        ear = ohr | oreille | oreja
+        wingspan = spannweite | envergure | envergadura
+        rate = taux | tasa | taxa
+        hind = posterieure | trasera
+        fore = anterieure | delantera | avant
+        arm = bras
+        maximum = maximale | maxima | maximo
+        minimum = minimale | minima | minimo""")
+_STOPWORDS = frozenset(
+    "of the an and for at in to de del des du la le les el los las et der die das von und da do".split()
+)
+_GERMAN_LINKS = ("", "s", "n", "en", "e")  # Fugenlaute between parts of compound nouns
+
+# A unit atom as met in column names: optional prefix, base, optional exponent.
+_UNIT_ATOM = re.compile(
+    r"(?:(?P<prefix>[kmcund]|da)?(?P<base>g|m|l|s|h|d|hr|min|j|cal|w|mol|hz|pa)"
+    r"|(?P<word>%|‰|°c|degc|°f|degf|c|k|ev|gr|ha|ppm|yr|years?|days?|sec|hours?|percent"
+    r"|pct|celsius|kelvin|grams?|bpm))(?P<exp>\^?-?[0-9]|[²³])?"
+)
+_WORD_UNITS = _table("""
+    degC = °c | degc | c | celsius
+    degF = °f | degf
+    K = k | kelvin
+    eV = ev
+    percent = % | pct
+    (percent/10) = ‰
+    year = yr | years
+    day = days
+    second = sec
+    hour = hours
+    g = gr | grams | gram
+    1/minute = bpm""")
+_PINT_CASE = {"j": "J", "w": "W", "hz": "Hz", "pa": "Pa", "l": "L", "hr": "h"}
+# a lone letter after a name is a unit only in these spellings; 'm'/'f' are usually sex codes,
+# 'k' a rate constant, 'n' a sample size
+_BARE_LETTER_UNITS = frozenset("gGcCKWJ")
+_CHEMICAL = re.compile(r"(?i)(co2|o2|h2o)(?![a-z0-9])")
+
+_BRACKETED = re.compile(r"[(\[{]([^()\[\]{}]*)[)\]}]")
+_IN_UNIT = re.compile(r"\s+in\s+([^\s_]+)\s*$", re.IGNORECASE)
+_SLASH_UNIT = re.compile(r"(?:^|[\s_])([^\s_()\[\]]*[a-zA-Zµμ°%][^\s_()\[\]]*/[^\s_()\[\]]+)\s*$")
+# lower->Upper ('bodyMass'), digit->Upper ('VO2Max'), and an upper-case run of two or more
+# before a capitalised word ('BMRWatts'); 'CTmax' stays one word on purpose.
+_CAMEL = re.compile(r"(?<=[a-z0-9])(?=[A-Z])|(?<=[A-Z]{2})(?=[A-Z][a-z])")
+_SEPARATORS = re.compile(r"[\s_\-./\\,;:|+*&'\"`´’‘“”!?=<>~^±]+")
+_CI = re.compile(r"^(?:9[059]%?)?ci(?:9[059]%?)?$")
+
+
+# --------------------------------------------------------------------------- normalising
+
+
+@lru_cache(maxsize=8192)
+def unit_to_pint(text: str) -> str | None:
+    """The pint text a unit written in a name stands for, or None if it does not read as one.
+
+    A deliberately small grammar (prefixed SI atoms, degrees, percent, exponents, joined by
+    '/', '.', '·' or spaces; chemical qualifiers such as O2 dropped; a counted noun before
+    '/' read as 1): a false 'unit' would eat part of a trait name. Full unit reading is
+    `harmonize.units`' job.
+    """
+    folded = _CHEMICAL.sub(" ", unicodedata.normalize("NFKC", text)).casefold()
+    folded = re.sub(r"\b(deg|°)\s+([cf])\b", r"°\2", folded.replace("µ", "u").replace("μ", "u"))
+    pieces = [p for p in re.split(r"(/)|[\s.·*]+", folded.strip()) if p]
+    out: list[str] = []
+    for i, piece in enumerate(pieces):
+        if piece == "/":
+            out.append(piece)
+            continue
+        atom = _UNIT_ATOM.fullmatch(piece)
+        if atom is None and i == 0 and pieces[1:2] == ["/"] and piece.isalpha() and len(piece) > 2:
+            out.append("1")  # 'breaths/min', 'hairs/cm2': a counted noun per unit
+            continue
+        if atom is None:
+            return None
+        if atom.group("word") is not None:
+            base = _WORD_UNITS.get(atom.group("word"), atom.group("word"))
+        else:
+            base = (atom.group("prefix") or "") + _PINT_CASE.get(
+                atom.group("base"), atom.group("base")
+            )
+        if atom.group("exp"):
+            base += "**" + {"²": "2", "³": "3"}.get(
+                atom.group("exp"), atom.group("exp").lstrip("^")
+            )
+        out.append(base)
+    if not out or out[0] == "/" or out[-1] in ("/", "1"):
+        return None
+    return " ".join(out).replace(" / ", "/")
+
+
+def _words(text: str) -> list[str]:
+    """Words as written (case kept); camelCase split except inside units ('mW', 'mgO2')."""
+    out: list[str] = []
+    for token in _SEPARATORS.split(text):
+        if token:
+            out += [token] if unit_to_pint(token) else _CAMEL.sub(" ", token).split()
+    return out
+
+
+def _statistic(words: list[str], *, at_end: bool) -> tuple[str, int] | None:
+    """A statistic phrase at the start or end of `words`: (code, words it spans)."""
+    for width in (3, 2, 1):
+        if len(words) > width:  # never take every word: a lone 'n' stays a name
+            window = tuple(w.casefold() for w in (words[-width:] if at_end else words[:width]))
+            if window in _STATISTIC_PHRASES:
+                return _STATISTIC_PHRASES[window], width
+    return None
+
+
+def _trailing_unit(words: list[str]) -> int:
+    """How many trailing words form a unit: 'mm' -> 1, 'ml_h' (ml/h) -> 2, none -> 0."""
+    if len(words) < 2 or (len(words) > 2 and words[-2].casefold() == "per"):
+        return 0  # 'clutches per year': the unit is part of the trait's name
+    run = 0
+    while run < min(3, len(words) - 1) and unit_to_pint(words[-1 - run]):
+        run += 1
+    while run >= 2 and len(words[-run]) == 1 and words[-run] not in _BARE_LETTER_UNITS:
+        run -= 1  # a lone letter may end a run ('ml_h') but not start one ('TotL_mm')
+    if run >= 2:
+        return run
+    last = words[-1]
+    if last.casefold() in ("min", "max") or (len(last) == 1 and last not in _BARE_LETTER_UNITS):
+        return 0
+    return run
+
+
+@dataclass(frozen=True)
+class _NameParts:
+    all_words: tuple[str, ...]  # folded words without the unit, statistic words kept
+    trait_words: tuple[str, ...]  # ... and without the statistic
+    unit: str | None  # as written
+    statistic: str | None
+
+
+@lru_cache(maxsize=65536)
+def _parse(raw: str) -> _NameParts:
+    text = unicodedata.normalize("NFKC", raw).strip()
+    unit: str | None = None
+    statistic: str | None = None
+
+    def bracket(m: re.Match[str]) -> str:
+        nonlocal unit, statistic
+        inner = m.group(1).strip()
+        code = _STATISTIC_PHRASES.get(tuple(w.casefold() for w in _words(inner)))
+        if code is not None and inner.casefold() != "min" and statistic is None:
+            statistic = code  # '(SD)'; but '(min)' after a name is minutes
+            return " "
+        if inner and unit is None and unit_to_pint(inner) is not None:
+            unit = inner
+            return " "
+        return f" {inner} "
+
+    text = _BRACKETED.sub(bracket, text)
+    for pattern in (_IN_UNIT, _SLASH_UNIT):
+        m = pattern.search(text)
+        if m and unit is None and unit_to_pint(m.group(1)) is not None:
+            unit, text = m.group(1), text[: m.start()] + " "
+    if unit is None and (m := re.search(r"^\s*%|%\s*$", text)):
+        unit, text = "%", text[: m.start()] + " " + text[m.end() :]
+    text = re.sub(r"(?i)\bs\.\s?e\.\s?m\b\.?", " sem ", text)
+    text = re.sub(r"(?i)\bs\.\s?([de])\b\.?", r" s\1 ", text)  # 's.d.', 's. e.'
+
+    words = ["ci" if _CI.match(w.casefold()) else w for w in _words(text)]  # 'ci95' -> 'ci'
+    words = [
+        w
+        for i, w in enumerate(words)
+        if not (re.fullmatch(r"9[059]%?", w) and "ci" in words[max(i - 1, 0) : i + 2])
+    ]
+    kept = list(words)  # statistic words stay here, the unit does not
+    for _ in range(3):  # trailing unit and statistic in either order: 'mass_g_sd', 'mass_sd_g'
+        if unit is None and (width := _trailing_unit(words)):
+            unit = "/".join(words[-width:])  # 'ml_h' is written for ml/h
+            words, kept = words[:-width], kept[:-width]
+            if len(words) > 1 and words[-1].casefold() == "in":
+                words, kept = words[:-1], kept[:-1]
+            continue
+        found = _statistic(words, at_end=True) if statistic is None else None
+        if found is None:
+            break
+        statistic, words = found[0], words[: -found[1]]
+    if statistic is None and (found := _statistic(words, at_end=False)) is not None:
+        statistic, words = found[0], words[found[1] :]
+    fold = lambda ws: tuple(w.casefold() for w in ws)  # noqa: E731
+    return _NameParts(fold(kept), fold(words), unit, statistic)
+
+
+def normalise_name(raw: str) -> NameHints:
+    """Reduce a raw column or trait name to its trait words and report unit/statistic hints.
+
+    >>> normalise_name("SVL (mm)")
+    NameHints(normalised='svl', unit_hint='mm', statistic_hint=None)
+    >>> normalise_name("mean_mass_g")
+    NameHints(normalised='mass', unit_hint='g', statistic_hint='mean')
+    """
+    parts = _parse(raw)
+    return NameHints(" ".join(parts.trait_words) or _fold(raw), parts.unit, parts.statistic)
+
+
+def _fold(text: str) -> str:
+    return unicodedata.normalize("NFKC", text).casefold().strip()
+
+
+def _plain(word: str) -> str:
+    decomposed = unicodedata.normalize("NFKD", word.replace("ß", "ss"))
+    return "".join(ch for ch in decomposed if not unicodedata.combining(ch)).casefold()
+
+
+@lru_cache(maxsize=65536)
+def _scoring_word(word: str) -> str:
+    """One word in scoring form: accents off, translated, German compounds split."""
+    plain = _plain(word)
+    if plain in _WORDS:
+        return _WORDS[plain]
+    if len(plain) >= 7:  # 'korpermasse' -> 'body mass', 'schwanzlange' -> 'tail length'
+        for cut in range(3, len(plain) - 2):
+            head, tail = plain[:cut], plain[cut:]
+            for link in _GERMAN_LINKS:
+                stem = head[: len(head) - len(link)]
+                if head.endswith(link) and stem in _WORDS:
+                    rest = _scoring_word(tail)
+                    if rest != tail:
+                        return f"{_WORDS[stem]} {rest}"
+    return plain
+
+
+def _scoring_key(words: Iterable[str]) -> str:
+    return " ".join(_scoring_word(w) for w in words if _plain(w) not in _STOPWORDS)
+
+
+# ------------------------------------------------------------------------------ the index
+
+
+@dataclass(frozen=True)
+class _Choice:
+    key: str  # scoring words joined by spaces
+    trait_id: str
+    kind: str  # exact (id or label) | synonym | ambiguous
+
+
+@dataclass(frozen=True)
+class _Candidate:
+    trait_id: str
+    score: float
+    kind: str  # as _Choice.kind, or 'bound' for a trait outside the shortlist
+    why: str  # what lowered the score, for the note
+
+
+_KIND_ORDER = {"exact": 0, "synonym": 1, "ambiguous": 2, "bound": 3}
+
+
+class _Index:
+    """Every vocabulary string in scoring form, grouped for exact and fuzzy lookup."""
+
+    def __init__(self, vocabulary: Vocabulary) -> None:
+        found: dict[tuple[str, str], str] = {}
+        for term in vocabulary.terms.values():
+            texts = [(term.id.replace("_", " "), "exact"), (term.label, "exact")]
+            texts += [(s, "synonym") for s in term.synonyms]
+            texts += [(s, "ambiguous") for s in term.ambiguous_synonyms]
+            for text, kind in texts:
+                key = _scoring_key(_words(unicodedata.normalize("NFKC", text)))
+                old = found.get((key, term.id))
+                if key and (old is None or _KIND_ORDER[kind] > _KIND_ORDER[old]):
+                    found[(key, term.id)] = kind  # a text also marked ambiguous stays ambiguous
+        ordered = sorted(found.items(), key=lambda item: (item[0][1], item[0][0]))
+        self.choices = [_Choice(key, trait_id, kind) for (key, trait_id), kind in ordered]
+        self.keys = [c.key for c in self.choices]
+        self.by_key: dict[str, list[_Choice]] = {}
+        self.by_compact: dict[str, list[_Choice]] = {}
+        for c in self.choices:
+            self.by_key.setdefault(c.key, []).append(c)
+            self.by_compact.setdefault(c.key.replace(" ", ""), []).append(c)
+        self.lexicon = frozenset(w for k in self.keys for w in k.split() if len(w) > 1)
+        self._lexicon_list = sorted(self.lexicon)
+        self.trait_ids = list(dict.fromkeys(c.trait_id for c in self.choices))
+        position = {t: i for i, t in enumerate(self.trait_ids)}
+        trait_of = np.array([position[c.trait_id] for c in self.choices])
+        self.group_starts = np.flatnonzero(np.r_[True, np.diff(trait_of) != 0])
+        self.dimension = {t: _term_dimension(vocabulary.terms[t]) for t in self.trait_ids}
+        self._refined: dict[str, tuple[str, int]] = {}
+
+    def unit_conflict(self, trait_id: str, hint_dimension: str | None) -> bool:
+        wanted = self.dimension.get(trait_id)
+        return hint_dimension is not None and wanted is not None and wanted != hint_dimension
+
+    def refine(self, key: str) -> tuple[str, int]:
+        """Split run-together words and correct misspelt ones: (new key, corrections made).
+
+        'bodytemp' -> 'body temperature' (two known words, no cost); 'tempreature' ->
+        'temperature' only if it is the one vocabulary word within one edit (optimal string
+        alignment, so a swap of neighbours is one edit) and the word has five letters or more.
+        """
+        if key not in self._refined:
+            words, fixes = [], 0
+            for word in key.split():
+                new = word if word in self.lexicon or not word.isalpha() else self._split(word)
+                if new is None and len(word) >= 5:
+                    close = process.extract(
+                        word, self._lexicon_list, scorer=OSA.distance, score_cutoff=1, limit=2
+                    )
+                    if len(close) == 1:
+                        new, fixes = close[0][0], fixes + 1
+                words.append(new or word)
+            self._refined[key] = (" ".join(words), fixes)
+        return self._refined[key]
+
+    def _split(self, word: str) -> str | None:
+        for cut in range(3, len(word) - 2):
+            head, tail = _scoring_word(word[:cut]), _scoring_word(word[cut:])
+            if head in self.lexicon and tail in self.lexicon:
+                return f"{head} {tail}"
+        return None
+
+
+def _term_dimension(term: Term) -> str | None:
+    """Dimension of the term's canonical unit; '-' for terms that take no unit at all."""
+    if term.unit is None:
+        return "-" if term.kind in ("category", "text") else None
+    return _dimension(str(term.unit))
+
+
+@lru_cache(maxsize=4096)
+def _dimension(pint_text: str | None) -> str | None:
+    if pint_text is None:
+        return None
+    from harmonize.units import UnitProblem, dimensionality  # noqa: PLC0415 - light import
+
+    try:
+        return dimensionality(pint_text)
+    except UnitProblem:
+        return None
+
+
+# ----------------------------------------------------------------------------- matching
+
+
+def match_names(
+    names: Iterable[str],
+    vocabulary: Vocabulary,
+    settings: MatchSettings = MatchSettings(),  # noqa: B008 - frozen, so a safe default
+    decisions: Mapping[str, Decision] | None = None,
+) -> dict[str, NameMatch]:
+    """Match each distinct raw name; a name with a decision is taken from it, never re-scored."""
+    index = _Index(vocabulary)
+    decisions = decisions or {}
+    results: dict[str, NameMatch] = {}
+    # scored once per distinct (words with statistic, words without, unit), not per raw name
+    groups: dict[tuple[str, str, str | None], list[str]] = {}
+    for raw in dict.fromkeys(names):
+        decision = decisions.get(raw, decisions.get(raw.strip()))
+        if decision is not None:
+            results[raw] = _decided(raw, decision, vocabulary)
+            continue
+        parts = _parse(raw)
+        unit = unit_to_pint(parts.unit) if parts.unit else None
+        key = (_scoring_key(parts.all_words), _scoring_key(parts.trait_words), unit)
+        groups.setdefault(key, []).append(raw)
+
+    outcomes: dict[tuple[str, str, str | None], tuple[str, dict[str, Any]]] = {}
+    for group in groups:
+        full, trait_words, unit = group
+        for variant in dict.fromkeys((full, trait_words)):
+            refined, fixes = index.refine(variant)
+            for key, cost in dict.fromkeys(((variant, 0), (refined, fixes))):
+                if found := _exact_candidates(index, key, _dimension(unit)):
+                    outcomes[group] = (variant, _judge_exact(found, cost))
+                    break
+            if group in outcomes:
+                break
+    to_score = {index.refine(k)[0] for g in groups if g not in outcomes for k in g[:2] if k}
+    scored = _fuzzy_scores(index, sorted(to_score))
+    for group in groups:
+        if group in outcomes:
+            continue
+        full, trait_words, unit = group
+        options = []
+        for variant in dict.fromkeys((trait_words, full)):  # ties go to the first: keeps the hint
+            if variant:
+                refined, fixes = index.refine(variant)
+                ranked = _rank(index, refined, scored[refined], _dimension(unit), fixes)
+                options.append((variant, ranked))
+        variant, ranked = max(options, key=lambda o: o[1][0].score, default=("", []))
+        outcomes[group] = (variant, _judge_fuzzy(ranked, settings))
+
+    for group, raws in groups.items():
+        full, trait_words, _ = group
+        variant, outcome = outcomes[group]
+        keeps_statistic = variant == trait_words or full == trait_words
+        for raw in raws:
+            parts = _parse(raw)
+            words = parts.trait_words if keeps_statistic else parts.all_words
+            results[raw] = NameMatch(
+                name=raw,
+                normalised=" ".join(words) or _fold(raw),
+                unit_hint=parts.unit,
+                statistic_hint=parts.statistic if keeps_statistic else None,
+                **outcome,
+            )
+    return {raw: results[raw] for raw in dict.fromkeys(names)}
+
+
+def _decided(raw: str, decision: Decision, vocabulary: Vocabulary) -> NameMatch:
+    if decision.trait_id is not None and decision.trait_id not in vocabulary.terms:
+        raise ConfigError(
+            f"decision for '{raw}' names unknown trait id '{decision.trait_id}'",
+            hint=did_you_mean(decision.trait_id, vocabulary),
+        )
+    parts = _parse(raw)
+    rejected = decision.method == "rejected"
+    score = decision.score if decision.score is not None else (0.0 if rejected else 100.0)
+    return NameMatch(
+        name=raw,
+        normalised=" ".join(parts.trait_words) or _fold(raw),
+        trait_id=None if rejected else decision.trait_id,
+        method=decision.method,
+        score=float(score),
+        status="rejected" if rejected else "accepted",
+        runner_up=None,
+        runner_up_score=None,
+        unit_hint=parts.unit,
+        statistic_hint=parts.statistic,
+        note=f"decided by {decision.decided_by} {decision.decided_at}".strip(),
+    )
+
+
+def _exact_candidates(index: _Index, key: str, dim: str | None) -> list[_Candidate]:
+    hits = index.by_key.get(key) or index.by_compact.get(key.replace(" ", "")) or []
+    best: dict[str, _Candidate] = {}
+    for c in hits:
+        why = "unit" if index.unit_conflict(c.trait_id, dim) else ""
+        old = best.get(c.trait_id)
+        if old is None or _KIND_ORDER[c.kind] > _KIND_ORDER[old.kind]:
+            best[c.trait_id] = _Candidate(c.trait_id, 100.0, c.kind, why)
+    # unit-compatible first, then the least ambiguous
+    return sorted(best.values(), key=lambda c: (c.why == "unit", _KIND_ORDER[c.kind], c.trait_id))
+
+
+def _judge_exact(candidates: list[_Candidate], fixes: int) -> dict[str, Any]:
+    top = candidates[0]
+    runner = candidates[1] if len(candidates) > 1 else None
+    score = 100.0 - CORRECTION_COST * fixes
+    outcome: dict[str, Any] = {
+        "trait_id": top.trait_id,
+        "method": "fuzzy" if fixes else ("exact" if top.kind == "exact" else "synonym"),
+        "score": score,
+        "runner_up": runner.trait_id if runner else None,
+        "runner_up_score": score if runner else None,
+    }
+    fixed = f"{fixes} misspelt word(s) corrected" if fixes else ""
+    if runner is not None or top.kind == "ambiguous":
+        names = ", ".join(c.trait_id for c in candidates)
+        return outcome | {"status": "review", "note": f"ambiguous synonym: could be {names}"}
+    if top.why == "unit":
+        note = f"unit in the name does not fit the canonical unit of {top.trait_id}"
+        return outcome | {"status": "review", "note": note}
+    return outcome | {"status": "accepted", "note": fixed}
+
+
+@dataclass(frozen=True)
+class _Scores:
+    shortlist: list[tuple[int, float]]  # (choice position, cheap score)
+    trait_bound: np.ndarray  # best cheap score per trait: an upper bound of its re-score
+
+
+def _fuzzy_scores(index: _Index, keys: list[str]) -> dict[str, _Scores]:
+    """Cheap scores of every key against every choice string, then a shortlist per key.
+
+    ratio catches typos and token_sort_ratio reordered words ('length tail'); both are cheap
+    enough for the whole matrix. WRatio and token_set_ratio are far slower and score a name
+    contained in another ('length' in 'tail length') as near-perfect: wrong for trait names.
+    """
+    out: dict[str, _Scores] = {}
+    width = min(SHORTLIST_SIZE, len(index.keys))
+    for start in range(0, len(keys), _CHUNK):
+        chunk = keys[start : start + _CHUNK]
+        cheap = np.maximum(
+            process.cdist(chunk, index.keys, scorer=fuzz.ratio, dtype=np.float32, workers=-1),
+            process.cdist(
+                chunk, index.keys, scorer=fuzz.token_sort_ratio, dtype=np.float32, workers=-1
+            ),
+        )
+        top = np.argpartition(-cheap, width - 1, axis=1)[:, :width]
+        bounds = np.maximum.reduceat(cheap, index.group_starts, axis=1)
+        for row, key in enumerate(chunk):
+            out[key] = _Scores([(int(c), float(cheap[row, c])) for c in top[row]], bounds[row])
+    return out
+
+
+def _rank(
+    index: _Index, key: str, scores: _Scores, dim: str | None, fixes: int
+) -> list[_Candidate]:
+    """Re-score a shortlist with the vocabulary-word, unit and correction costs; best first.
+
+    A name word that is a vocabulary word yet absent from the candidate ('dry' against 'wet
+    body mass', 'tail' against 'total length') signals another meaning, where a typo makes a
+    non-word ('lenght'). Ratio alone cannot tell the two apart.
+    """
+    words = key.split()
+    cost = CORRECTION_COST * fixes
+    best: dict[str, _Candidate] = {}
+    for pos, cheap in scores.shortlist:
+        choice = index.choices[pos]
+        compact = choice.key.replace(" ", "")
+        extra = [
+            w
+            for w in words
+            if w in index.lexicon and w not in choice.key.split() and w not in compact
+        ]
+        score = cheap - cost - LEXICON_PENALTY * len(extra)
+        why = f"'{' '.join(extra)}' is not in '{choice.key}'" if extra else ""
+        if index.unit_conflict(choice.trait_id, dim):
+            score, why = score - UNIT_PENALTY, "unit in the name does not fit"
+        old = best.get(choice.trait_id)
+        if old is None or score > old.score:
+            best[choice.trait_id] = _Candidate(choice.trait_id, max(score, 0.0), choice.kind, why)
+    ranked = list(best.values())
+    for trait_id, bound in zip(index.trait_ids, scores.trait_bound, strict=True):
+        if trait_id not in best:  # outside the shortlist: the cheap score bounds it from above
+            penalty = UNIT_PENALTY if index.unit_conflict(trait_id, dim) else 0.0
+            ranked.append(_Candidate(trait_id, max(float(bound) - penalty, 0.0), "bound", ""))
+    return sorted(ranked, key=lambda c: (-c.score, _KIND_ORDER[c.kind], c.trait_id))
+
+
+def _judge_fuzzy(candidates: list[_Candidate], settings: MatchSettings) -> dict[str, Any]:
+    if not candidates:
+        return {"trait_id": None, "method": "unmatched", "score": 0.0, "status": "review",
+                "runner_up": None, "runner_up_score": None, "note": "no words left to match"}  # fmt: skip
+    top = candidates[0]
+    runner_score = candidates[1].score if len(candidates) > 1 else 0.0
+    score, margin = round(top.score, 1), round(top.score - runner_score, 1)
+    if score < settings.review:
+        note = f"best candidate {top.trait_id} scores {score} (below {settings.review})"
+        return {"trait_id": None, "method": "unmatched", "score": score, "status": "review",
+                "runner_up": top.trait_id, "runner_up_score": score, "note": note}  # fmt: skip
+    runner = candidates[1] if len(candidates) > 1 else None
+    outcome = {
+        "trait_id": top.trait_id,
+        "method": "fuzzy",
+        "score": score,
+        "runner_up": runner.trait_id if runner else None,
+        "runner_up_score": round(runner_score, 1) if runner else None,
+    }
+    if top.kind == "ambiguous":
+        note = "close to an ambiguous synonym"
+    elif score < settings.accept:
+        note = f"score {score} below {settings.accept}"
+    elif margin < settings.margin:
+        note = f"margin {margin} below {settings.margin} over runner-up {outcome['runner_up']}"
+    else:
+        return outcome | {"status": "accepted", "note": top.why}
+    return outcome | {"status": "review", "note": f"{note}; {top.why}" if top.why else note}
+
+
+def suggest_trait_ids(text: str, vocabulary: Vocabulary, limit: int = 3) -> list[str]:
+    """Vocabulary ids closest to `text`, for 'did you mean' hints on mistyped ids."""
+    hits = process.extract(
+        text, list(vocabulary.terms), scorer=fuzz.ratio, limit=limit, score_cutoff=60
+    )
+    return [hit[0] for hit in hits]
+
+
+def did_you_mean(text: str, vocabulary: Vocabulary) -> str | None:
+    close = suggest_trait_ids(text, vocabulary)
+    return f"did you mean {' or '.join(close)}?" if close else None
