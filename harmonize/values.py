@@ -115,7 +115,9 @@ def _as_arrow(raw: pd.Series | pa.Array | pa.ChunkedArray | Sequence[str | None]
         series = series.astype("str")
     if pd.api.types.is_bool_dtype(series.dtype):
         series = series.astype("str")
-    return pa.array(series, from_pandas=True)
+    array = pa.array(series, from_pandas=True)
+    # pandas' Arrow-backed text columns may arrive in several chunks
+    return array.combine_chunks() if isinstance(array, pa.ChunkedArray) else array
 
 
 def _parse_numeric(arr: pa.Array) -> ParsedValues:

@@ -65,9 +65,21 @@ def main(argv: list[str] | None = None) -> None:
         sys.exit(130)
     except SystemExit:
         raise
+    except (MemoryError, RecursionError) as error:
+        click.echo(f"error: out of resources ({type(error).__name__}); see limits in harmonize.yaml", err=True)
+        sys.exit(4)
     except OSError as error:  # disk full, permission denied: the file system's own words are clear
         if debug:
             raise
         name = f" {error.filename}" if getattr(error, "filename", None) else ""
         click.echo(f"error:{name}: {error.strerror or error}", err=True)
+        sys.exit(4)
+    except Exception as error:  # a bug in harmonize, not bad input: say so, keep the cause visible
+        if debug:
+            raise
+        click.echo(
+            f"internal error (a bug in harmonize, please report it): {type(error).__name__}: {error}; "
+            "rerun with --debug for the traceback",
+            err=True,
+        )
         sys.exit(4)
