@@ -335,7 +335,12 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     temperature, temperature_reason = _measurement_temperature(cells, plan)
     correction_label = np.full(count, None, dtype=object)
     is_rate = per_trait["rate"].astype(bool) & numeric & ~is_n
-    if plan.correction is not None and is_rate.any():
+    # Correct only where the source declares its measurement temperature; elsewhere rates stay
+    # as measured and say so (a flag, not a guess of the temperature).
+    uncorrected = np.zeros(count, dtype=bool)
+    if plan.correction is not None and plan.mapping.temperature is None:
+        uncorrected = is_rate
+    elif plan.correction is not None and is_rate.any():
         bad = is_rate & pd.notna(pd.Series(temperature_reason)).to_numpy()
         fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_reason)
         corrected, reasons = correct_rates(converted, temperature, plan.correction)
@@ -362,6 +367,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         np.where(unit_origin == "name-hint", "unit-from-name", ""),
         stat_flags,
         np.where(correction_label != None, "temperature-corrected", ""),  # noqa: E711 - elementwise
+        np.where(uncorrected, "rate-not-corrected:no-measurement-temperature", ""),
     )
 
     written = fate.open

@@ -378,7 +378,9 @@ def normalise_summaries(frame: pd.DataFrame) -> pd.DataFrame:
     invalid = pd.Series(np.logical_or.reduce(problem_masks), index=out.index)
     message = pd.Series(_join_where(problem_masks, [t for _, t in problems], "; "), index=out.index)
     has_centre = out["mean"].notna() | out["median"].notna()
-    has_dispersion = out[list(_DISPERSION_COLUMNS)].notna().any(axis=1)
+    # An SD or SE says nothing without the centre it spreads around; a range, quartiles or a
+    # confidence interval on their own still describe the population and are kept.
+    has_dispersion = out[list(SPREAD_COLUMNS)].notna().any(axis=1)
     orphan = ~invalid & has_dispersion & ~has_centre
     message = message.where(~orphan, "a dispersion statistic without a mean or median")
     reason = pd.Series(pd.NA, index=out.index, dtype="string")

@@ -341,6 +341,14 @@ def test_normalise_summaries_orphan_dispersion_and_passthrough():
     assert pd.isna(out.loc[1, "reason"]) and list(out["trait"]) == ["a", "b"]
 
 
+def test_range_or_quartiles_alone_are_kept_not_orphaned():
+    # a population described only by its range (common in field guides) is usable data
+    frame = pd.DataFrame({"min": [11.3, np.nan], "max": [12.9, np.nan], "q1": [np.nan, 2.0], "q3": [np.nan, 3.0], "n": 14})
+    out = normalise_summaries(frame)
+    assert out["reason"].isna().all()
+    assert out["mean"].isna().all()  # nothing invented for the centre
+
+
 def test_normalise_summaries_reads_percent_ci_level():
     out = normalise_summaries(
         pd.DataFrame([{"mean": 5, "ci_low": 4, "ci_high": 6, "ci_level": 90, "n": 30}])
