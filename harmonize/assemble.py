@@ -242,7 +242,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     else:
         assumed = pd.isna(pd.Series(statistic)).to_numpy()
         statistic = np.where(assumed, "mean", statistic)
-        stat_flags = np.where(assumed, "statistic-assumed-mean", "")
+        stat_flags = np.where(assumed & ~np.isin(kind, ["category", "text"]), "statistic-assumed-mean", "")
 
     # 6. category traits
     is_category = np.isin(kind, ["category", "text"])
