@@ -373,6 +373,7 @@ def _fold(text: str) -> str:
     return unicodedata.normalize("NFKC", text).casefold().strip()
 
 
+@lru_cache(maxsize=65536)
 def _plain(word: str) -> str:
     decomposed = unicodedata.normalize("NFKD", word.replace("ß", "ss"))
     return "".join(ch for ch in decomposed if not unicodedata.combining(ch)).casefold()
@@ -446,15 +447,23 @@ class _Index:
         self.lexicon = frozenset(w for k in self.keys for w in k.split() if len(w) > 1)
         self._lexicon_list = sorted(self.lexicon)
         self.trait_ids = list(dict.fromkeys(c.trait_id for c in self.choices))
-        position = {t: i for i, t in enumerate(self.trait_ids)}
-        trait_of = np.array([position[c.trait_id] for c in self.choices])
+        self.position = {t: i for i, t in enumerate(self.trait_ids)}
+        trait_of = np.array([self.position[c.trait_id] for c in self.choices])
         self.group_starts = np.flatnonzero(np.r_[True, np.diff(trait_of) != 0])
         self.dimension = {t: _term_dimension(vocabulary.terms[t]) for t in self.trait_ids}
-        self._refined: dict[str, tuple[str, int]] = {}
+        self._word_fix: dict[str, tuple[str, int]] = {}
+        self._conflicts: dict[str | None, np.ndarray] = {}
 
     def unit_conflict(self, trait_id: str, hint_dimension: str | None) -> bool:
         wanted = self.dimension.get(trait_id)
         return hint_dimension is not None and wanted is not None and wanted != hint_dimension
+
+    def conflicts(self, hint_dimension: str | None) -> np.ndarray:
+        """Per trait (in `trait_ids` order): does the unit hint's dimension rule it out?"""
+        if hint_dimension not in self._conflicts:
+            flags = [self.unit_conflict(t, hint_dimension) for t in self.trait_ids]
+            self._conflicts[hint_dimension] = np.array(flags, dtype=bool)
+        return self._conflicts[hint_dimension]
 
     def refine(self, key: str) -> tuple[str, int]:
         """Split run-together words and correct misspelt ones: (new key, corrections made).
@@ -463,24 +472,39 @@ class _Index:
         'temperature' only if it is the one vocabulary word within one edit (optimal string
         alignment, so a swap of neighbours is one edit) and the word has five letters or more.
         """
-        if key not in self._refined:
-            words, fixes = [], 0
-            for word in key.split():
-                new = word if word in self.lexicon or not word.isalpha() else self._split(word)
-                if new is None and len(word) >= 5:
-                    close = process.extract(
-                        word, self._lexicon_list, scorer=OSA.distance, score_cutoff=1, limit=2
-                    )
-                    if len(close) == 1:
-                        new, fixes = close[0][0], fixes + 1
-                words.append(new or word)
-            self._refined[key] = (" ".join(words), fixes)
-        return self._refined[key]
+        words = key.split()
+        self.learn_words(words)
+        fixed = [self._word_fix.get(w, (w, 0)) for w in words]
+        return " ".join(w for w, _ in fixed), sum(cost for _, cost in fixed)
+
+    def learn_words(self, words: Iterable[str]) -> None:
+        """Work out the split or correction of every new unknown word, all in one batch."""
+        new = {
+            w for w in words if w not in self._word_fix and w not in self.lexicon and w.isalpha()
+        }
+        unsplit = []
+        for word in new:
+            split = self._split(word) if len(word) >= 6 else None
+            self._word_fix[word] = (split, 0) if split else (word, 0)
+            if split is None and len(word) >= 5:
+                unsplit.append(word)
+        if unsplit and self._lexicon_list:
+            distance = process.cdist(
+                unsplit,
+                self._lexicon_list,
+                scorer=OSA.distance,
+                score_cutoff=1,
+                dtype=np.int32,
+                workers=-1,
+            )
+            close = distance <= 1
+            for row in np.flatnonzero(close.sum(axis=1) == 1):
+                self._word_fix[unsplit[row]] = (self._lexicon_list[int(np.argmax(close[row]))], 1)
 
     def _split(self, word: str) -> str | None:
         for cut in range(3, len(word) - 2):
-            head, tail = _scoring_word(word[:cut]), _scoring_word(word[cut:])
-            if head in self.lexicon and tail in self.lexicon:
+            head = _scoring_word(word[:cut])
+            if head in self.lexicon and (tail := _scoring_word(word[cut:])) in self.lexicon:
                 return f"{head} {tail}"
         return None
 
@@ -529,6 +553,7 @@ def match_names(
         key = (_scoring_key(parts.all_words), _scoring_key(parts.trait_words), unit)
         groups.setdefault(key, []).append(raw)
 
+    index.learn_words({w for group in groups for key in group[:2] for w in key.split()})
     outcomes: dict[tuple[str, str, str | None], tuple[str, dict[str, Any]]] = {}
     for group in groups:
         full, trait_words, unit = group
@@ -553,7 +578,18 @@ def match_names(
                 ranked = _rank(index, refined, scored[refined], _dimension(unit), fixes)
                 options.append((variant, ranked))
         variant, ranked = max(options, key=lambda o: o[1][0].score, default=("", []))
-        outcomes[group] = (variant, _judge_fuzzy(ranked, settings))
+        outcome = _judge_fuzzy(ranked, settings)
+        # 'maximum metabolic rate field': is 'maximum' a statistic or part of the name? When
+        # the two readings point at different traits and the other is nearly reviewable,
+        # a person decides (heuristic: one vocabulary-word penalty below the review bar).
+        other = [o for o in options if o[0] != variant and o[1][0].trait_id != ranked[0].trait_id]
+        if outcome["status"] == "accepted" and other:
+            rival = other[0][1][0]
+            if rival.score >= settings.review - LEXICON_PENALTY:
+                note = f"the statistic word may belong to the name: could also be {rival.trait_id}"
+                outcome |= {"status": "review", "runner_up": rival.trait_id,
+                            "runner_up_score": round(rival.score, 1), "note": note}  # fmt: skip
+        outcomes[group] = (variant, outcome)
 
     for group, raws in groups.items():
         full, trait_words, _ = group
@@ -687,10 +723,13 @@ def _rank(
         if old is None or score > old.score:
             best[choice.trait_id] = _Candidate(choice.trait_id, max(score, 0.0), choice.kind, why)
     ranked = list(best.values())
-    for trait_id, bound in zip(index.trait_ids, scores.trait_bound, strict=True):
-        if trait_id not in best:  # outside the shortlist: the cheap score bounds it from above
-            penalty = UNIT_PENALTY if index.unit_conflict(trait_id, dim) else 0.0
-            ranked.append(_Candidate(trait_id, max(float(bound) - penalty, 0.0), "bound", ""))
+    # outside the shortlist the cheap score bounds a trait's re-score from above: the best
+    # such bound stands in for every other trait as a possible runner-up
+    bounds = scores.trait_bound - UNIT_PENALTY * index.conflicts(dim)
+    bounds[[index.position[t] for t in best]] = -np.inf
+    if len(bounds) and np.isfinite(top := bounds.max()):
+        outside = index.trait_ids[int(np.argmax(bounds))]
+        ranked.append(_Candidate(outside, max(float(top), 0.0), "bound", ""))
     return sorted(ranked, key=lambda c: (-c.score, _KIND_ORDER[c.kind], c.trait_id))
 
 

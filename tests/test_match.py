@@ -249,6 +249,13 @@ def test_statistic_hint_is_kept_only_when_not_part_of_the_trait_name(bundled):
     assert (result["mass_SE"].trait_id, result["mass_SE"].statistic_hint) == ("body_mass_wet", "se")
 
 
+def test_regression_statistic_word_that_belongs_to_another_trait_name(bundled):
+    # 'maximum' read as a statistic left 'metabolic rate field', a word-order match of
+    # 'field metabolic rate'; the reading with 'maximum' points at maximum_metabolic_rate
+    match = match_names(["maximum metabolic rate field"], bundled)["maximum metabolic rate field"]
+    assert match.status == "review"
+
+
 # ----------------------------------------------------------------------------- decisions
 
 
