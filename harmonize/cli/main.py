@@ -48,7 +48,8 @@ cli.add_command(review_cmd.review)
 def main(argv: list[str] | None = None) -> None:
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
     try:
-        cli.main(args=argv, prog_name="harmonize", standalone_mode=False)
+        result = cli.main(args=argv, prog_name="harmonize", standalone_mode=False)
+        sys.exit(result if isinstance(result, int) else 0)
     except click.exceptions.Abort:
         click.echo("aborted", err=True)
         sys.exit(130)

@@ -1,0 +1,143 @@
+"""The command line: exit codes, one-line errors, quick mode, vocabulary search, the installed script."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from harmonize.cli.main import EXIT_CODES, main
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+def run(argv: list[str], capsys) -> tuple[int, str, str]:
+    with pytest.raises(SystemExit) as exited:
+        main(argv)
+    captured = capsys.readouterr()
+    code = exited.value.code if isinstance(exited.value.code, int) else 0
+    return code, captured.out, captured.err
+
+
+@pytest.fixture
+def demo(tmp_path: Path) -> Path:
+    shutil.copy(REPO / "harmonize.yaml", tmp_path / "harmonize.yaml")
+    for folder in ("mappings", "demo_sources", "vocab"):
+        shutil.copytree(REPO / folder, tmp_path / folder)
+    return tmp_path
+
+
+def test_build_prints_the_summary_and_says_names_need_review(demo: Path, capsys) -> None:
+    code, out, err = run(["build", str(demo)], capsys)
+    assert code == 1, err  # the demo has deliberately unknown names: exit 1 = built, review needed
+    assert "names needing review" in out
+    assert "balanced" in out and "NO" not in out.split("accounting")[0].split()[-1]
+    assert "frictionless validation: valid" in out
+    assert "reading north-lizards" in err  # progress on stderr
+    assert (demo / "out" / "demo-package" / "datapackage.json").is_file()
+
+
+def test_quiet_build_has_no_progress(demo: Path, capsys) -> None:
+    _, _, err = run(["build", str(demo), "--quiet"], capsys)
+    assert "reading" not in err
+
+
+def test_bad_mapping_is_one_line_with_file_and_exit_3(demo: Path, capsys) -> None:
+    mapping = demo / "mappings" / "north-lizards.yaml"
+    mapping.write_text(
+        mapping.read_text(encoding="utf-8").replace("layout: wide", "layuot: wide"),
+        encoding="utf-8",
+    )
+    code, out, err = run(["build", str(demo)], capsys)
+    assert code == 3
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error:")
+    assert "north-lizards.yaml" in lines[0] and "did you mean 'layout'" in lines[0]
+    assert "Traceback" not in err
+
+
+def test_missing_source_file_names_it(demo: Path, capsys) -> None:
+    (demo / "demo_sources" / "west" / "shrews.tsv").unlink()
+    code, _, err = run(["build", str(demo)], capsys)
+    assert code == 3
+    assert "shrews.tsv" in err and "not found" in err
+
+
+def test_quick_mode_on_a_messy_table(tmp_path: Path, capsys) -> None:
+    table = tmp_path / "field sheet.csv"
+    table.write_text(
+        "Species;SVL (mm);Body mass [g];CTmax (°C);remarks\n"
+        "Podarcis muralis;55,2;4,1;43,1;ok\n"
+        "podarcis muralis;n.d.;3,9;42,8;\n"
+        "Podarcis muralis;61,0;oops;43,5;\n",
+        encoding="utf-8",
+    )
+    code, out, err = run(
+        ["quick", str(table), "--taxon", "Species", "--delimiter", ";", "--decimal", ",",
+         "--missing", "n.d.", "--ignore", "remarks", "--quiet"],
+        capsys,
+    )  # fmt: skip
+    assert code == 0, err
+    package = tmp_path / "field-sheet-harmonized"
+    values = pd.read_csv(package / "individual_values.csv")
+    assert set(values["trait_id"]) == {
+        "snout_vent_length",
+        "body_mass_wet",
+        "critical_thermal_maximum",
+    }
+    rejects = pd.read_csv(package / "rejects.csv")
+    assert rejects[["source_row", "column", "reason"]].values.tolist() == [
+        [3, "Body mass [g]", "not-a-number"]
+    ]
+    assert "individual values:    7" in out
+
+
+def test_quick_mode_rejects_half_a_long_layout(tmp_path: Path, capsys) -> None:
+    table = tmp_path / "t.csv"
+    table.write_text("a,b\n1,2\n", encoding="utf-8")
+    code, _, err = run(["quick", str(table), "--trait-column", "a"], capsys)
+    assert code == 3 and "--value-column" in err
+
+
+def test_vocab_search_finds_by_abbreviation(capsys) -> None:
+    code, out, _ = run(["vocab", "search", "SVL"], capsys)
+    assert code == 0
+    assert "snout_vent_length" in out
+
+
+def test_vocab_search_role_filter(capsys) -> None:
+    _, out, _ = run(["vocab", "search", "--role", "forcing"], capsys)
+    assert "air_temperature" in out and "body_mass_wet" not in out
+
+
+def test_help_lists_exit_codes(capsys) -> None:
+    code, out, _ = run(["--help"], capsys)
+    assert code == 0
+    for number in EXIT_CODES:
+        assert f"  {number}  " in out
+
+
+def test_unknown_command_is_a_usage_error(capsys) -> None:
+    code, _, err = run(["frobnicate"], capsys)
+    assert code == 2 and "frobnicate" in err
+
+
+def test_installed_console_script_runs() -> None:
+    script = Path(sys.executable).with_name("harmonize")
+    if not script.exists():
+        pytest.skip("console script not installed beside this Python (package not installed)")
+    version = subprocess.run(
+        [str(script), "--version"], capture_output=True, text=True, timeout=120
+    )
+    assert version.returncode == 0 and "harmonize" in version.stdout
+    module = subprocess.run(
+        [sys.executable, "-m", "harmonize", "vocab", "search", "CTmax"],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert module.returncode == 0 and "critical_thermal_maximum" in module.stdout
