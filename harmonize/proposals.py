@@ -53,6 +53,11 @@ def names_for_review(
         .rename("example_values")
     )
     rows = chosen.merge(example, left_on=["source_id", "name"], right_index=True, how="left")
+    # an unmatched name carries its best candidate as runner-up: propose it, for the human to judge
+    best_only = rows["trait_id"].isna() & rows["runner_up"].notna()
+    rows.loc[best_only, "trait_id"] = rows.loc[best_only, "runner_up"]
+    rows.loc[best_only, "score"] = rows.loc[best_only, "runner_up_score"]
+    rows.loc[best_only, ["runner_up", "runner_up_score"]] = None
     sheet = pd.DataFrame(
         {
             "source": rows["source_id"],
