@@ -25,7 +25,9 @@ LEVELS = ("individual", "population")
 LAYOUTS = ("wide", "long")
 STATISTICS = (
     "value", "mean", "sd", "se", "n", "min", "max", "median", "q1", "q3", "ci_low", "ci_high",
+    "variance", "cv",
 )  # fmt: skip
+GROUP_CONTEXT = ("sex", "life_stage", "site", "date")  # sub-groups a population may be split by
 ROLES = ("parameter", "threshold", "structure", "estimation", "forcing", "descriptive")
 CONTEXT_KEYS = (
     "taxon",
@@ -49,17 +51,26 @@ EXTENSION_FORMATS = {
 PROJECT_KEYS = (
     "name", "title", "description", "vocabulary", "mappings", "output", "matching",
     "temperature_correction", "taxon_synonyms", "licence", "version", "limits",
+    "aggregate_individuals",
 )  # fmt: skip
 MAPPING_KEYS = (
     "source", "path", "format", "read", "citation", "licence", "level", "layout", "context",
-    "traits", "columns", "ignore", "ci_level", "description",
+    "traits", "columns", "ignore", "ci_level", "description", "combine_groups",
+    "arrhenius_temperature",
 )  # fmt: skip
 READ_KEYS = ("delimiter", "decimal", "thousands", "encoding", "missing", "sheet")
 TRAIT_KEYS = ("trait", "unit", "statistic", "role")
 LONG_KEYS = ("trait", "value", "unit", "statistic", "n")
 OUTPUT_KEYS = ("folder", "format")
 MATCHING_KEYS = ("accept", "review", "margin")
-CORRECTION_KEYS = ("method", "reference", "unit", "activation_energy_ev", "q10")
+CORRECTION_KEYS = (
+    "method",
+    "reference",
+    "unit",
+    "activation_energy_ev",
+    "arrhenius_temperature",
+    "q10",
+)
 LIMIT_KEYS = ("max_file_bytes", "max_cell_chars", "max_columns", "batch_rows")
 
 
@@ -117,6 +128,8 @@ class Mapping:
     columns: LongColumns | None = None
     ignore: tuple[str, ...] = ()
     ci_level: float = 0.95
+    combine_groups: tuple[str, ...] = ()  # population sub-groups to pool (Cochrane Table 6.5.a)
+    arrhenius_temperature: float | None = None  # K; overrides trait and project values
 
     @property
     def decisions_file(self) -> Path:
@@ -162,6 +175,9 @@ class Project:
     licence: str = ""
     version: str = ""
     limits: Limits = Limits()
+    aggregate_individuals: tuple[str, ...] | None = (
+        None  # None: off; else context keys besides taxon
+    )
 
 
 # ---------------------------------------------------------------- helpers for checked access
@@ -415,7 +431,39 @@ def load_mapping(path: Path, root: Path) -> Mapping:
         columns=columns,
         ignore=tuple(str(c) for c in ignore),
         ci_level=ci_level,
+        combine_groups=_combine_groups(data.get("combine_groups"), level, path),
+        arrhenius_temperature=_arrhenius(
+            data.get("arrhenius_temperature"), path, "arrhenius_temperature"
+        ),
     )
+
+
+def _combine_groups(value: Any, level: str, file: Path) -> tuple[str, ...]:
+    if value is None:
+        return ()
+    if isinstance(value, str):
+        value = [value]
+    if not isinstance(value, list) or any(v not in GROUP_CONTEXT for v in value):
+        raise ConfigError(
+            f"'combine_groups' must list context keys among {', '.join(GROUP_CONTEXT)}, got {value!r}",
+            file=str(file),
+        )
+    if level != "population":
+        raise ConfigError(
+            "'combine_groups' applies to population-level sources only", file=str(file)
+        )
+    return tuple(value)
+
+
+def _arrhenius(value: Any, file: Path, where: str) -> float | None:
+    if value is None:
+        return None
+    number = _number(value, file, where)
+    if not 0 < number < 1e5:
+        raise ConfigError(
+            f"'{where}' must be a temperature in K, e.g. 8000; got {value!r}", file=str(file)
+        )
+    return number
 
 
 def _temperature(value: Any, file: Path) -> TemperatureSpec:
@@ -537,12 +585,23 @@ def load_project(location: Path | str = ".") -> Project:
             raise ConfigError(
                 "'temperature_correction.unit' must be degC or K", file=str(project_file)
             )
+        if "activation_energy_ev" in spec and "arrhenius_temperature" in spec:
+            raise ConfigError(
+                "give either 'activation_energy_ev' or 'arrhenius_temperature', not both",
+                file=str(project_file),
+            )
+        if "activation_energy_ev" in spec:
+            energy = _number(spec["activation_energy_ev"], project_file, "activation_energy_ev")
+        else:
+            # T_A = E / k; 8000 K is common practice without a single published source
+            arrhenius = _arrhenius(
+                spec.get("arrhenius_temperature", 8000.0), project_file, "arrhenius_temperature"
+            )
+            energy = arrhenius * 8.617333262e-5  # k in eV/K, CODATA 2018 (exact)
         correction = TemperatureCorrectionSpec(
             method=method,
             reference_celsius=reference,
-            activation_energy_ev=_number(
-                spec.get("activation_energy_ev", 0.65), project_file, "activation_energy_ev"
-            ),
+            activation_energy_ev=energy,
             q10=_number(spec.get("q10", 2.0), project_file, "q10"),
         )
 
@@ -578,7 +637,27 @@ def load_project(location: Path | str = ".") -> Project:
         licence=_string(data.get("licence"), project_file, "licence") or "",
         version=_string(data.get("version"), project_file, "version") or "",
         limits=limits,
+        aggregate_individuals=_aggregate(data.get("aggregate_individuals"), project_file),
     )
+
+
+def _aggregate(value: Any, file: Path) -> tuple[str, ...] | None:
+    """`aggregate_individuals: true` or `{by: [site, sex]}`: context keys to group by besides taxon."""
+    if value in (None, False):
+        return None
+    if value is True:
+        return ("site",)
+    spec = _mapping(value, file, "aggregate_individuals")
+    _check_keys(spec, ("by",), file, "aggregate_individuals")
+    by = spec.get("by", ["site"])
+    if isinstance(by, str):
+        by = [by]
+    if not isinstance(by, list) or any(v not in GROUP_CONTEXT for v in by):
+        raise ConfigError(
+            f"'aggregate_individuals.by' must list keys among {', '.join(GROUP_CONTEXT)}",
+            file=str(file),
+        )
+    return tuple(by)
 
 
 def single_file_project(

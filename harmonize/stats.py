@@ -27,8 +27,10 @@ from harmonize.errors import ConfigError, RejectReason
 
 SD_METHODS = (
     "given",
+    "from variance",
     "from se",
     "from ci",
+    "from cv",
     "from iqr (estimate)",
     "from range (estimate)",
     "from iqr and range (estimate)",
@@ -66,14 +68,18 @@ STATISTIC_COLUMNS = (
     "q3",
     "min",
     "max",
+    "variance",
+    "cv",
 )
 # Statistics that are positions on the measurement scale: they follow value*scale+offset.
 LOCATION_COLUMNS = ("mean", "median", "q1", "q3", "min", "max", "ci_low", "ci_high")
 # Statistics that are distances on the scale: an offset cancels, only |scale| applies.
 SPREAD_COLUMNS = ("sd", "se")
+# A variance is a squared distance: it takes scale**2 (never an offset). A coefficient of
+# variation is a ratio of two quantities in the same unit, so it does not change at all.
+SQUARED_SPREAD_COLUMNS = ("variance",)
 # Lower/upper pairs that trade places when the scale is negative.
 _BOUND_PAIRS = (("min", "max"), ("q1", "q3"), ("ci_low", "ci_high"))
-_DISPERSION_COLUMNS = ("sd", "se", "ci_low", "ci_high", "q1", "q3", "min", "max")
 
 DEFAULT_CI_LEVEL = 0.95
 # A given SD and a given SE*sqrt(n) further apart than this (relative) are reported.
@@ -93,6 +99,22 @@ def sd_from_se(se: ArrayLike, n: ArrayLike) -> np.ndarray:
     se, n = _float_array(se), _float_array(n)
     with np.errstate(invalid="ignore"):
         return np.where(n >= 1, se * np.sqrt(n), np.nan)
+
+
+def sd_from_variance(variance: ArrayLike) -> np.ndarray:
+    """SD as the square root of the variance (its definition); negative variances give NaN."""
+    variance = _float_array(variance)
+    with np.errstate(invalid="ignore"):
+        return np.where(variance >= 0, np.sqrt(np.abs(variance)), np.nan)
+
+
+def sd_from_cv(cv: ArrayLike, mean: ArrayLike) -> np.ndarray:
+    """SD from a coefficient of variation (as a fraction, not percent): SD = CV * |mean|.
+
+    CV = SD / mean by definition (e.g. Sokal & Rohlf, Biometry, 4th ed., section 4.10; from
+    memory). Only meaningful on a ratio scale; the caller passes the mean in the same unit.
+    """
+    return _float_array(cv) * np.abs(_float_array(mean))
 
 
 def sd_from_ci(
@@ -337,6 +359,8 @@ def _validity_problems(s: pd.DataFrame, not_numbers: dict[str, pd.Series]) -> li
         ),
         (s["sd"] < 0, "sd is negative"),
         (s["se"] < 0, "se is negative"),
+        (s["variance"] < 0, "variance is negative"),
+        (s["cv"] < 0, "cv is negative"),
         ((s["ci_level"] <= 0) | (s["ci_level"] >= 1), "ci_level must lie between 0 and 1"),
         (s["ci_low"] > s["ci_high"], "ci_low is above ci_high"),
         (s["q1"] > s["q3"], "q1 is above q3"),
@@ -380,7 +404,7 @@ def normalise_summaries(frame: pd.DataFrame) -> pd.DataFrame:
     has_centre = out["mean"].notna() | out["median"].notna()
     # An SD or SE says nothing without the centre it spreads around; a range, quartiles or a
     # confidence interval on their own still describe the population and are kept.
-    has_dispersion = out[list(SPREAD_COLUMNS)].notna().any(axis=1)
+    has_dispersion = out[[*SPREAD_COLUMNS, *SQUARED_SPREAD_COLUMNS, "cv"]].notna().any(axis=1)
     orphan = ~invalid & has_dispersion & ~has_centre
     message = message.where(~orphan, "a dispersion statistic without a mean or median")
     reason = pd.Series(pd.NA, index=out.index, dtype="string")
@@ -397,12 +421,14 @@ def normalise_summaries(frame: pd.DataFrame) -> pd.DataFrame:
     def series(values: np.ndarray) -> pd.Series:
         return pd.Series(values, index=index)
 
-    # Preference: given > se > ci > iqr+range > iqr > range (exact before estimated,
-    # more information before less).
+    # Preference: given > variance > se > ci > cv > iqr+range > iqr > range (exact before
+    # estimated, more information before less). SD from a CV needs a given mean.
     sd_candidates = [
         ("given", out["sd"]),
+        ("from variance", series(sd_from_variance(out["variance"]))),
         ("from se", series(sd_from_se(out["se"], n))),
         ("from ci", series(sd_from_ci(out["ci_low"], out["ci_high"], n, out["ci_level"]))),
+        ("from cv", series(sd_from_cv(out["cv"], out["mean"]))),
         (
             "from iqr and range (estimate)",
             series(sd_from_iqr_and_range(out["min"], out["q1"], out["q3"], out["max"], n)),
@@ -486,6 +512,9 @@ def convert_summary_units(
     for column in SPREAD_COLUMNS:
         if column in out.columns:
             out[column] = out[column].astype(float) * np.abs(scale)
+    for column in SQUARED_SPREAD_COLUMNS:
+        if column in out.columns:
+            out[column] = out[column].astype(float) * scale**2
     flipped = scale < 0
     for lower, upper in _BOUND_PAIRS:
         if lower in out.columns and upper in out.columns and flipped.any():

@@ -14,6 +14,7 @@ pure multiplication, so mean, SD, SE and CI bounds all take the same factor).
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -34,6 +35,15 @@ PLAUSIBLE_MEASUREMENT_CELSIUS = (-60.0, 80.0)
 # 0.6-0.7 eV across taxa; 0.65 eV as a default is common practice.
 DEFAULT_ACTIVATION_ENERGY_EV = 0.65
 DEFAULT_Q10 = 2.0
+# The Arrhenius temperature T_A = E / k. 8000 K is a value common in energy-budget modelling
+# practice with no single published source (it corresponds to E of about 0.69 eV); projects
+# that set neither T_A nor E get it, and the output label always states the value used.
+DEFAULT_ARRHENIUS_TEMPERATURE_K = 8000.0
+
+
+def activation_energy_from_arrhenius_temperature(arrhenius_temperature_k: float) -> float:
+    """E = k * T_A (eV), by the definition of the Arrhenius temperature."""
+    return float(arrhenius_temperature_k) * BOLTZMANN_EV_PER_K
 
 
 def arrhenius_factor(
@@ -104,9 +114,20 @@ class TemperatureCorrection:
         """Text for the output column, so a corrected rate is never read as a measured one."""
         if self.method == "arrhenius":
             return (
-                f"arrhenius E={self.activation_energy_ev:g} eV to {self.reference_celsius:g} degC"
+                f"arrhenius E={self.activation_energy_ev:.4g} eV "
+                f"(T_A={self.arrhenius_temperature_k:.0f} K) to {self.reference_celsius:g} degC"
             )
         return f"q10 Q10={self.q10:g} to {self.reference_celsius:g} degC"
+
+    @property
+    def arrhenius_temperature_k(self) -> float:
+        """T_A = E / k in kelvin."""
+        return self.activation_energy_ev / BOLTZMANN_EV_PER_K
+
+    def with_arrhenius_temperature(self, arrhenius_temperature_k: float) -> TemperatureCorrection:
+        """The same correction with another T_A (a per-trait or per-source override)."""
+        energy = activation_energy_from_arrhenius_temperature(arrhenius_temperature_k)
+        return dataclasses.replace(self, activation_energy_ev=energy)
 
     def factor(self, measured_celsius: ArrayLike) -> np.ndarray:
         """Multiplicative factor per measurement temperature (NaN where undefined)."""

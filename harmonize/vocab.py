@@ -37,6 +37,7 @@ _OPTIONAL_KEYS = (
     "rate",
     "categories",
     "notes",
+    "arrhenius_temperature",
 )
 _ALLOWED_KEYS = _REQUIRED_KEYS + _OPTIONAL_KEYS
 _VALUED_KINDS = ("quantity", "count")  # kinds whose values carry a unit and a range
@@ -66,6 +67,7 @@ class Term:
     categories: tuple[str, ...]
     source_file: str  # file name inside the vocabulary folder, e.g. 'morphology.yaml'
     notes: str | None = None
+    arrhenius_temperature: float | None = None  # K; only for rates, overrides the project default
 
 
 @dataclass(frozen=True)
@@ -363,6 +365,23 @@ def _term(entry: Any, file_name: str, where: str, line: int | None) -> Term:
     notes = entry.get("notes")
     if notes is not None and not isinstance(notes, str):
         raise fail("notes must be text", "write notes as one string")
+    arrhenius = entry.get("arrhenius_temperature")
+    if arrhenius is not None:
+        if not rate:
+            raise fail(
+                "arrhenius_temperature given for a term that is not a rate",
+                "only rate: true terms take it",
+            )
+        if (
+            isinstance(arrhenius, bool)
+            or not isinstance(arrhenius, (int, float))
+            or not 0 < arrhenius < 1e5
+        ):
+            raise fail(
+                f"arrhenius_temperature {arrhenius!r} is not a temperature in K",
+                "e.g. arrhenius_temperature: 8000",
+            )
+        arrhenius = float(arrhenius)
     return Term(
         id=entry_id,
         label=entry["label"].strip(),
@@ -380,6 +399,7 @@ def _term(entry: Any, file_name: str, where: str, line: int | None) -> Term:
         categories=tuple(categories),
         source_file=file_name,
         notes=" ".join(notes.split()) if notes else None,
+        arrhenius_temperature=arrhenius,
     )
 
 

@@ -153,7 +153,20 @@ def test_dispersion_takes_the_same_factor_as_the_mean():
 
 
 def test_label_names_method_parameters_and_reference():
-    assert TemperatureCorrection("arrhenius", 20.0).label() == "arrhenius E=0.65 eV to 20 degC"
+    # T_A = E / k = 0.65 eV / 8.617333262e-5 eV/K = 7543 K (CODATA 2018 k)
+    assert (
+        TemperatureCorrection("arrhenius", 20.0).label()
+        == "arrhenius E=0.65 eV (T_A=7543 K) to 20 degC"
+    )
+
+
+def test_arrhenius_temperature_override_matches_the_textbook_factor():
+    # factor exp(T_A/T_ref - T_A/T) with T_A = 8000 K, T = 30 degC, T_ref = 20 degC (the
+    # Arrhenius relation written with the Arrhenius temperature; 8000 K is common practice)
+    correction = TemperatureCorrection("arrhenius", 20.0).with_arrhenius_temperature(8000.0)
+    expected = np.exp(8000.0 / 293.15 - 8000.0 / 303.15)
+    assert correction.factor(30.0) == pytest.approx(1 / expected, rel=1e-12)
+    assert correction.arrhenius_temperature_k == pytest.approx(8000.0)
     assert TemperatureCorrection("q10", 25.0, q10=2.5).label() == "q10 Q10=2.5 to 25 degC"
 
 
