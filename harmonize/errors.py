@@ -84,6 +84,8 @@ class BuildError(HarmonizeError, RuntimeError):
 class BuildLockedError(BuildError):
     """Another build holds the output lock."""
 
+    exit_code = 5
+
 
 class RejectReason(StrEnum):
     """Stable reason codes for cells that cannot be used. The values are part of the output format."""
