@@ -251,19 +251,103 @@ def resolve_inside(root: Path, base: Path, text: str, file: Path, where: str) ->
     return resolved
 
 
-def _load_yaml(path: Path) -> Any:
+# A YAML file may repeat a node through anchors and aliases (`&a` ... `*a`); a few lines of
+# nested aliases stand for billions of values ("billion laughs"), which `yaml.safe_load` builds
+# as shared references that explode once walked. Configuration files are small, so anything
+# larger than these bounds is refused before its values are used.
+YAML_MAX_BYTES = 1 << 20
+YAML_MAX_EXPANDED_NODES = 1_000_000
+
+
+def _expanded_size(root: yaml.Node) -> int:
+    """Number of nodes once every alias is written out, counted without writing them out."""
+    size: dict[int, int] = {}
+    stack: list[tuple[yaml.Node, bool]] = [(root, False)]
+    open_nodes: set[int] = set()
+    while stack:
+        node, children_done = stack.pop()
+        key = id(node)
+        if key in size:
+            continue
+        if isinstance(node, yaml.ScalarNode):
+            size[key] = 1
+            continue
+        children = (
+            [item for pair in node.value for item in pair]
+            if isinstance(node, yaml.MappingNode)
+            else list(node.value)
+        )
+        if children_done:
+            open_nodes.discard(key)
+            size[key] = 1 + sum(size[id(child)] for child in children)
+            if size[key] > YAML_MAX_EXPANDED_NODES:
+                return size[key]
+            continue
+        if key in open_nodes:  # an alias inside its own anchor: endless once written out
+            return YAML_MAX_EXPANDED_NODES + 1
+        open_nodes.add(key)
+        stack.append((node, True))
+        for child in children:
+            if id(child) in open_nodes:
+                return YAML_MAX_EXPANDED_NODES + 1
+            stack.append((child, False))
+    return size[id(root)]
+
+
+def parse_yaml(text: str) -> tuple[yaml.Node | None, Any]:
+    """Parse YAML with the safe loader (no tags that build objects), refusing alias bombs.
+
+    Returns the composed node (for line numbers) and the data. Raises `yaml.YAMLError`, whose
+    `problem` and `problem_mark` name the cause and the line, like any syntax error.
+    """
+    loader = yaml.SafeLoader(text)
     try:
-        text = path.read_text(encoding="utf-8")
+        node = loader.get_single_node()
+        if node is None:
+            return None, None
+        if _expanded_size(node) > YAML_MAX_EXPANDED_NODES:
+            raise yaml.constructor.ConstructorError(
+                None,
+                None,
+                f"anchors and aliases (&name, *name) expand to more than "
+                f"{YAML_MAX_EXPANDED_NODES} values or refer to themselves; refused as an alias "
+                "bomb: write the values out",
+                None,
+            )
+        return node, loader.construct_document(node)
+    except RecursionError:
+        raise yaml.YAMLError("nested too deeply to read") from None
+    finally:
+        loader.dispose()
+
+
+def read_yaml_text(path: Path, error_class: type[ConfigError] = ConfigError) -> str:
+    """The text of a YAML configuration file, refused above YAML_MAX_BYTES or if not UTF-8."""
+    try:
+        size = path.stat().st_size
+        if size > YAML_MAX_BYTES:
+            raise error_class(
+                f"file is {size} bytes, more than the {YAML_MAX_BYTES} allowed for a YAML file",
+                file=str(path),
+                hint="configuration files are small; check that this is the intended file",
+            )
+        return path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise SourceNotFoundError("file not found", file=str(path)) from None
     except UnicodeDecodeError as error:
-        raise ConfigError(f"not UTF-8 text ({error.reason})", file=str(path)) from None
+        raise error_class(
+            f"not UTF-8 text ({error.reason})", file=str(path), hint="save the file as UTF-8"
+        ) from None
+
+
+def _load_yaml(path: Path) -> Any:
+    text = read_yaml_text(path)
     try:
-        return yaml.safe_load(text)
+        return parse_yaml(text)[1]
     except yaml.YAMLError as error:
         mark = getattr(error, "problem_mark", None)
         row = mark.line + 1 if mark is not None else None
-        problem = getattr(error, "problem", None) or "invalid YAML"
+        problem = getattr(error, "problem", None) or str(error) or "invalid YAML"
         raise ConfigError(f"invalid YAML: {problem}", file=str(path), row=row) from None
 
 

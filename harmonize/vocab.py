@@ -23,6 +23,7 @@ from typing import Any
 import yaml
 
 from harmonize.errors import VocabularyError
+from harmonize.project import YAML_MAX_BYTES, parse_yaml
 
 ROLES = ("parameter", "threshold", "structure", "estimation", "forcing", "descriptive")
 KINDS = ("quantity", "count", "category", "text")
@@ -155,6 +156,14 @@ def load_vocabulary(folder: Path | str | None = None) -> Vocabulary:
         raise VocabularyError(
             "vocabulary folder holds no .yaml files", file=str(root), hint="add at least one"
         )
+    for path in paths:
+        size = path.stat().st_size
+        if size > YAML_MAX_BYTES:  # refused before reading: a vocabulary file is small
+            raise VocabularyError(
+                f"file is {size} bytes, more than the {YAML_MAX_BYTES} allowed for a YAML file",
+                file=str(path),
+                hint="split the vocabulary into several files",
+            )
     contents = {path.name: path.read_bytes() for path in paths}
     terms: dict[str, Term] = {}
     for path in paths:
@@ -263,8 +272,7 @@ def _read_file(path: Path, raw: bytes) -> list[Term]:
     where = str(path)
     try:
         text = raw.decode("utf-8")
-        node = yaml.compose(text, Loader=yaml.SafeLoader)
-        data = yaml.safe_load(text)
+        node, data = parse_yaml(text)  # refuses alias bombs as a YAMLError
     except UnicodeDecodeError as error:
         raise VocabularyError(
             f"not UTF-8 text ({error.reason})", file=where, hint="save the file as UTF-8"
