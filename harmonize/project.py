@@ -20,7 +20,7 @@ import yaml
 
 from harmonize.errors import ConfigError, SourceNotFoundError, UnsafePathError
 
-FORMATS = ("csv", "tsv", "parquet")
+FORMATS = ("csv", "tsv", "parquet", "dwca", "datapackage")  # the last two: harmonize.foreign
 LEVELS = ("individual", "population")
 LAYOUTS = ("wide", "long")
 STATISTICS = (
@@ -46,6 +46,8 @@ EXTENSION_FORMATS = {
     ".txt": "tsv",
     ".parquet": "parquet",
     ".pq": "parquet",
+    ".zip": "dwca",  # a Darwin Core Archive; an unpacked one is named by its meta.xml
+    ".json": "datapackage",  # a Frictionless Data Package named by its datapackage.json
 }
 
 PROJECT_KEYS = (
@@ -58,7 +60,7 @@ MAPPING_KEYS = (
     "traits", "columns", "ignore", "ci_level", "description", "combine_groups",
     "arrhenius_temperature",
 )  # fmt: skip
-READ_KEYS = ("delimiter", "decimal", "thousands", "encoding", "missing", "sheet")
+READ_KEYS = ("delimiter", "decimal", "thousands", "encoding", "missing", "sheet", "resource")
 TRAIT_KEYS = ("trait", "unit", "statistic", "role")
 LONG_KEYS = ("trait", "value", "unit", "statistic", "n")
 OUTPUT_KEYS = ("folder", "format")
@@ -81,6 +83,7 @@ class ReadOptions:
     thousands: str | None = None
     encoding: str = "utf-8"
     missing: tuple[str, ...] = ("", "NA")
+    resource: str | None = None  # the resource of a data package source
 
 
 @dataclass(frozen=True)
@@ -417,7 +420,14 @@ def load_mapping(path: Path, root: Path) -> Mapping:
         thousands=thousands,
         encoding=encoding,
         missing=tuple("" if m is None else str(m) for m in missing),
+        resource=_string(read_data.get("resource"), path, "read.resource"),
     )
+    if read.resource is not None and fmt != "datapackage":
+        raise ConfigError(
+            "'read.resource' picks a resource of a data package source",
+            file=str(path),
+            hint="set format: datapackage, or remove read.resource",
+        )
 
     context_data = _mapping(data.get("context"), path, "context")
     _check_keys(context_data, CONTEXT_KEYS, path, "context")

@@ -22,6 +22,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
+from harmonize import foreign
 from harmonize.errors import ConfigError, SourceNotFoundError, SourceReadError
 from harmonize.project import Limits, Mapping
 
@@ -187,6 +188,8 @@ READERS: dict[str, tuple[Callable[[Mapping], list[str]], Reader]] = {
     "csv": (_delimited_header, _read_delimited),
     "tsv": (_delimited_header, _read_delimited),
     "parquet": (_parquet_header, _read_parquet),
+    "dwca": (foreign.dwca_header, foreign.read_dwca),
+    "datapackage": (foreign.datapackage_header, foreign.read_datapackage),
 }
 
 

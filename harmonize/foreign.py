@@ -1,0 +1,517 @@
+"""Read tables published by others as sources: Darwin Core Archives and Frictionless packages.
+
+Two formats for `harmonize.sources.READERS`, each a header reader and a batch reader that yield
+text frames like the CSV and Parquet readers do, so a mapping treats them like any table:
+
+- `dwca`: a Darwin Core Archive with a MeasurementOrFact (or extended MeasurementOrFact)
+  extension, given as the `.zip` or as the `meta.xml` of an unpacked archive. Each extension row
+  becomes one row of a long table: `coreid`, the core's terms (scientificName, sex, lifeStage,
+  locality, eventDate, ...) and the extension's terms (measurementType, measurementValue,
+  measurementUnit, ...), named by the last part of their term URI. Source rows count extension
+  rows. A term in both files keeps the core's value under its name and the extension's as
+  `mof.<term>`. Extension rows whose core id is not in the core are kept with empty core
+  columns (the build rejects their cells for a missing taxon); a core id used twice is refused,
+  since it would attach the same values to two records (ECOSYSTEM-NOTES §4).
+- `datapackage`: a Frictionless Data Package written by someone else, given as its
+  `datapackage.json`; `read: {resource: NAME}` picks the resource (optional when there is one).
+  CSV/TSV and Parquet resources are read; the dialect's delimiter, quote character and header,
+  the resource's encoding and the schema's `missingValues` (they become empty cells) are honoured.
+
+Safety, before any data is read: archive members with absolute paths, drive letters or `..`
+are refused (zip-slip), meta.xml locations likewise, every data file is held to the project's
+`limits.max_file_bytes`, and package paths go through `harmonize.package_validate.check_paths`.
+Nothing here uses the network. Parsing numbers, matching names and converting units are left to
+the later stages; this module only reads.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import xml.etree.ElementTree as ET
+import zipfile
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path, PurePosixPath, PureWindowsPath
+from typing import IO, Any
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+
+from harmonize.errors import ConfigError, SourceReadError, UnsafePathError
+from harmonize.package_validate import DESCRIPTOR_NAME, check_paths
+from harmonize.project import Limits, Mapping
+
+_TEXT_NS = "{http://rs.tdwg.org/dwc/text/}"
+_ESCAPES = {"\\t": "\t", "\\n": "\n", "\\r": "\r"}
+
+
+# ---------------------------------------------------------------- shared
+
+
+def _unsafe_member(name: str) -> str | None:
+    """Why an archive path may not be followed, or None (zip-slip: absolute paths and '..')."""
+    posix = name.replace("\\", "/")
+    if posix.startswith("/") or PureWindowsPath(name).drive or PureWindowsPath(name).anchor:
+        return "is an absolute path"
+    if ".." in PurePosixPath(posix).parts:
+        return "goes up a folder ('..')"
+    return None
+
+
+def _check_size(size: int, limits: Limits, file: str) -> None:
+    if size > limits.max_file_bytes:
+        raise SourceReadError(
+            f"file is {size} bytes, above the limit of {limits.max_file_bytes}",
+            file=file,
+            hint="raise limits.max_file_bytes in harmonize.yaml if this is intended",
+        )
+
+
+def _read_text(
+    stream: IO[bytes] | Path,
+    *,
+    file: str,
+    delimiter: str,
+    quote: str,
+    skip_rows: int,
+    encoding: str,
+    columns: dict[str, str],
+) -> pd.DataFrame:
+    """Read the columns {position name 'f<i>': output name} of a delimited file as text."""
+    names = list(columns)
+    try:
+        table = pacsv.read_csv(
+            stream,
+            read_options=pacsv.ReadOptions(
+                autogenerate_column_names=True,
+                skip_rows=skip_rows,
+                encoding=encoding,
+                block_size=1 << 22,
+            ),
+            parse_options=pacsv.ParseOptions(
+                delimiter=delimiter, quote_char=quote or False, newlines_in_values=bool(quote)
+            ),
+            convert_options=pacsv.ConvertOptions(
+                include_columns=names,
+                column_types=dict.fromkeys(names, pa.string()),
+                strings_can_be_null=False,
+                quoted_strings_can_be_null=False,
+            ),
+        )
+    except KeyError as error:  # ArrowKeyError: a declared index beyond the file's columns
+        raise SourceReadError(
+            f"a declared column is not in the file ({error})",
+            file=file,
+            hint="check the field indexes in meta.xml against the file",
+        ) from None
+    except (pa.ArrowInvalid, UnicodeDecodeError) as error:
+        raise SourceReadError(
+            f"cannot read as delimited text ({str(error).splitlines()[0]})",
+            file=file,
+            hint="rows must have as many fields as the first one; check the declared delimiter "
+            "and encoding",
+        ) from None
+    frame = table.to_pandas()
+    return frame.rename(columns=columns)[list(columns.values())]
+
+
+def _arrow_encoding(encoding: str) -> str:
+    """pyarrow names UTF-8 'utf8'; other encodings are passed on to Python's codecs."""
+    return "utf8" if encoding.lower().replace("-", "").replace("_", "") == "utf8" else encoding
+
+
+def _batches(frame: pd.DataFrame, limits: Limits) -> Iterator[pd.DataFrame]:
+    for start in range(0, max(len(frame), 1), limits.batch_rows):
+        piece = frame.iloc[start : start + limits.batch_rows].reset_index(drop=True)
+        if len(piece) or start == 0:
+            yield piece
+
+
+# ---------------------------------------------------------------- Darwin Core Archive
+
+
+@dataclass(frozen=True)
+class _FileSpec:
+    """One <core> or <extension> of meta.xml (Darwin Core Text Guide)."""
+
+    row_type: str
+    location: str
+    key_index: int  # <id> of the core, <coreid> of an extension
+    fields: tuple[tuple[str, int | None, str], ...]  # (term name, index or None, default)
+    delimiter: str
+    quote: str
+    skip_rows: int
+    encoding: str
+
+
+class _ArchiveFiles:
+    """Member files of a zipped or unpacked archive, refusing paths that leave it."""
+
+    def __init__(self, mapping: Mapping, limits: Limits) -> None:
+        self.path = mapping.path
+        self.limits = limits
+        self.zip: zipfile.ZipFile | None = None
+        self.base = ""
+        if mapping.path.name.lower() == "meta.xml":
+            self.folder = Path(os.path.realpath(mapping.path.parent))
+            return
+        try:
+            self.zip = zipfile.ZipFile(mapping.path)
+        except zipfile.BadZipFile:
+            raise SourceReadError(
+                "not a zip file",
+                file=str(mapping.path),
+                hint="give a Darwin Core Archive (.zip) or the meta.xml of an unpacked one",
+            ) from None
+        total = 0
+        for info in self.zip.infolist():
+            reason = _unsafe_member(info.filename)
+            if reason:
+                raise UnsafePathError(
+                    f"archive member {info.filename!r} {reason}; the archive is refused",
+                    file=str(mapping.path),
+                    hint="an archive may only hold files below its own root",
+                )
+            _check_size(info.file_size, limits, f"{mapping.path}:{info.filename}")
+            total += info.file_size
+        _check_size(total, limits, str(mapping.path))
+        metas = [n for n in self.zip.namelist() if PurePosixPath(n).name == "meta.xml"]
+        if not metas:
+            raise SourceReadError(
+                "no meta.xml in the archive",
+                file=str(mapping.path),
+                hint="a Darwin Core Archive describes its files in meta.xml",
+            )
+        shallowest = min(metas, key=lambda n: n.count("/"))
+        self.base = shallowest[: -len("meta.xml")]
+
+    def __enter__(self) -> _ArchiveFiles:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self.zip is not None:
+            self.zip.close()
+
+    def where(self, name: str) -> str:
+        return f"{self.path}:{name}" if self.zip else str(self.folder / name)
+
+    def open(self, name: str) -> IO[bytes]:
+        reason = _unsafe_member(name)
+        if reason:
+            raise UnsafePathError(
+                f"meta.xml location {name!r} {reason}",
+                file=str(self.path),
+                hint="locations must name files inside the archive",
+            )
+        if self.zip is not None:
+            try:
+                return self.zip.open(self.base + name)
+            except KeyError:
+                raise SourceReadError(
+                    f"meta.xml names {name!r}, which is not in the archive", file=str(self.path)
+                ) from None
+        target = Path(os.path.realpath(self.folder / name))
+        if not target.is_relative_to(self.folder):
+            raise UnsafePathError(
+                f"meta.xml location {name!r} leaves the archive folder once links are resolved",
+                file=str(self.path),
+            )
+        if not target.is_file():
+            raise SourceReadError(f"meta.xml names {name!r}, which is missing", file=str(target))
+        _check_size(target.stat().st_size, self.limits, str(target))
+        return open(target, "rb")
+
+
+def _attribute(element: ET.Element, name: str, default: str) -> str:
+    value = element.get(name)
+    if value is None:
+        return default
+    for written, meant in _ESCAPES.items():
+        value = value.replace(written, meant)
+    return value
+
+
+def _file_spec(element: ET.Element, key_tag: str, file: str) -> _FileSpec:
+    location = element.find(f"{_TEXT_NS}files/{_TEXT_NS}location")
+    key = element.find(f"{_TEXT_NS}{key_tag}")
+    if location is None or not (location.text or "").strip() or key is None:
+        raise SourceReadError(
+            f"meta.xml <{element.tag.removeprefix(_TEXT_NS)}> needs <files><location> and "
+            f"<{key_tag}>",
+            file=file,
+        )
+    fields = []
+    for field in element.findall(f"{_TEXT_NS}field"):
+        term = (field.get("term") or "").rstrip("/")
+        name = term.rsplit("/", 1)[-1].rsplit("#", 1)[-1]
+        index = field.get("index")
+        fields.append(
+            (name, int(index) if index not in (None, "") else None, field.get("default", ""))
+        )
+    # Defaults of the Darwin Core text schema (tdwg_dwc_text.xsd), not those of any one reader.
+    return _FileSpec(
+        row_type=element.get("rowType", ""),
+        location=location.text.strip(),
+        key_index=int(key.get("index", "0")),
+        fields=tuple(fields),
+        delimiter=_attribute(element, "fieldsTerminatedBy", ","),
+        quote=_attribute(element, "fieldsEnclosedBy", '"'),
+        skip_rows=int(element.get("ignoreHeaderLines", "0") or 0),
+        encoding=_attribute(element, "encoding", "UTF-8"),
+    )
+
+
+def _archive_layout(files: _ArchiveFiles) -> tuple[_FileSpec, _FileSpec]:
+    """The core and the MeasurementOrFact extension described by meta.xml."""
+    where = files.where("meta.xml")
+    try:
+        with files.open("meta.xml") as handle:
+            root = ET.parse(handle).getroot()  # expat >= 2.4 refuses entity expansion bombs
+    except ET.ParseError as error:
+        raise SourceReadError(f"meta.xml is not well-formed XML ({error})", file=where) from None
+    core = root.find(f"{_TEXT_NS}core")
+    if core is None:
+        raise SourceReadError("meta.xml has no <core>", file=where)
+    facts = [
+        e
+        for e in root.findall(f"{_TEXT_NS}extension")
+        if e.get("rowType", "").endswith("MeasurementOrFact")
+    ]
+    if len(facts) != 1:
+        raise SourceReadError(
+            f"meta.xml declares {len(facts)} MeasurementOrFact extensions; one is needed",
+            file=where,
+            hint="harmonize reads the trait values from one MeasurementOrFact extension",
+        )
+    return _file_spec(core, "id", where), _file_spec(facts[0], "coreid", where)
+
+
+def _column_names(spec: _FileSpec, key_name: str, taken: set[str], prefix: str) -> list[str]:
+    names = [key_name]
+    for name, _index, _default in spec.fields:
+        names.append(f"{prefix}{name}" if name in taken else name)
+    return names
+
+
+def dwca_header(mapping: Mapping) -> list[str]:
+    with _ArchiveFiles(mapping, Limits()) as files:
+        core, facts = _archive_layout(files)
+    core_names = _column_names(core, "coreid", set(), "")[1:]
+    return ["coreid", *core_names, *_column_names(facts, "coreid", set(core_names), "mof.")[1:]]
+
+
+def _read_spec(files: _ArchiveFiles, spec: _FileSpec, names: list[str]) -> pd.DataFrame:
+    """The file of one meta.xml part: key column then one column per declared field."""
+    by_index = {spec.key_index: names[0]}  # file column -> first output name reading it
+    copies: list[tuple[str, str]] = []  # a field sharing a column (occurrenceID at the id's)
+    constants: dict[str, str] = {}  # a field with only a default applies to every row
+    for name, (_term, index, default) in zip(names[1:], spec.fields, strict=True):
+        if index is None:
+            constants[name] = default
+        elif index in by_index:
+            copies.append((name, by_index[index]))
+        else:
+            by_index[index] = name
+    with files.open(spec.location) as handle:
+        frame = _read_text(
+            handle,
+            file=files.where(spec.location),
+            delimiter=spec.delimiter,
+            quote=spec.quote,
+            skip_rows=spec.skip_rows,
+            encoding=_arrow_encoding(spec.encoding),
+            columns={f"f{index}": name for index, name in by_index.items()},
+        )
+    for name, source in copies:
+        frame[name] = frame[source]
+    for name, value in constants.items():
+        frame[name] = value
+    return frame[names]
+
+
+def read_dwca(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
+    with _ArchiveFiles(mapping, limits) as files:
+        core_spec, facts_spec = _archive_layout(files)
+        core_names = _column_names(core_spec, "coreid", set(), "")
+        fact_names = _column_names(facts_spec, "coreid", set(core_names[1:]), "mof.")
+        core = _read_spec(files, core_spec, core_names)
+        facts = _read_spec(files, facts_spec, fact_names)
+        core_file = files.where(core_spec.location)
+    repeated = core["coreid"][core["coreid"].duplicated()]
+    if len(repeated):
+        raise SourceReadError(
+            f"core id {repeated.iloc[0]!r} is used by more than one core row",
+            file=core_file,
+            hint="core ids must be unique, or the archive's values would be attached twice",
+        )
+    joined = facts.merge(core, on="coreid", how="left", sort=False).fillna("")
+    yield from _batches(joined[header], limits)
+
+
+# ---------------------------------------------------------------- Frictionless Data Package
+
+_DATA_FORMATS = {
+    ".csv": "csv",
+    ".tsv": "tsv",
+    ".tab": "tsv",
+    ".parquet": "parquet",
+    ".pq": "parquet",
+}
+_UNSUPPORTED_DIALECT = ("commentChar", "commentRows", "headerJoin")
+
+
+@dataclass(frozen=True)
+class _Resource:
+    name: str
+    paths: tuple[Path, ...]
+    format: str
+    delimiter: str
+    quote: str
+    header: bool
+    encoding: str
+    fields: tuple[str, ...]
+    missing: tuple[str, ...]
+
+
+def _json_part(folder: Path, value: Any, what: str) -> dict:
+    """An inline object, or a JSON file inside the package (paths already checked)."""
+    if value is None:
+        return {}
+    if isinstance(value, str):
+        try:
+            value = json.loads((folder / value).read_text(encoding="utf-8"))
+        except (OSError, ValueError) as error:
+            raise ConfigError(f"cannot read the {what} file {value!r} ({error})") from None
+    if not isinstance(value, dict):
+        raise ConfigError(f"the resource {what} must be an object")
+    return value
+
+
+def _resource(mapping: Mapping) -> _Resource:
+    descriptor_file = mapping.path
+    if descriptor_file.name != DESCRIPTOR_NAME:
+        raise ConfigError(
+            f"a data package source must point at its {DESCRIPTOR_NAME}",
+            file=str(mapping.mapping_file),
+        )
+    folder = Path(os.path.realpath(descriptor_file.parent))
+    check_paths(folder)  # URLs, absolute paths, '..' and links out of the folder are refused
+    descriptor = json.loads(descriptor_file.read_text(encoding="utf-8"))
+    resources = [r for r in descriptor.get("resources", []) if isinstance(r, dict)]
+    names = [str(r.get("name", "")) for r in resources]
+    wanted = mapping.read.resource
+    if wanted is None and len(resources) == 1:
+        chosen = resources[0]
+    elif wanted is not None and wanted in names:
+        chosen = resources[names.index(wanted)]
+    else:
+        raise ConfigError(
+            f"resource {wanted!r} is not in the package"
+            if wanted
+            else f"the package has {len(resources)} resources; name one",
+            file=str(mapping.mapping_file),
+            hint=f"set read: {{resource: NAME}}, one of: {', '.join(names) or '(none)'}",
+        )
+    name = str(chosen.get("name", ""))
+    paths = chosen.get("path")
+    if paths is None:
+        raise ConfigError(
+            f"resource {name!r} has no path (inline data is not read)", file=str(descriptor_file)
+        )
+    paths = tuple(folder / str(p) for p in (paths if isinstance(paths, list) else [paths]))
+    fmt = str(chosen.get("format") or _DATA_FORMATS.get(paths[0].suffix.lower(), "")).lower()
+    if fmt not in ("csv", "tsv", "parquet"):
+        raise ConfigError(
+            f"resource {name!r} has format {fmt or 'unknown'!r}",
+            file=str(descriptor_file),
+            hint="harmonize reads CSV, TSV and Parquet resources",
+        )
+    dialect = _json_part(folder, chosen.get("dialect"), "dialect")
+    schema = _json_part(folder, chosen.get("schema"), "schema")
+    for key in _UNSUPPORTED_DIALECT:
+        if dialect.get(key) not in (None, "", []):
+            raise ConfigError(
+                f"resource {name!r}: dialect '{key}' is not supported", file=str(descriptor_file)
+            )
+    if dialect.get("headerRows", [1]) != [1]:
+        raise ConfigError(
+            f"resource {name!r}: only a header in the first row is supported",
+            file=str(descriptor_file),
+        )
+    fields = tuple(str(f.get("name", "")) for f in schema.get("fields", []) if isinstance(f, dict))
+    header = bool(dialect.get("header", True))
+    if not header and not fields:
+        raise ConfigError(
+            f"resource {name!r} has no header row and no schema fields to name its columns",
+            file=str(descriptor_file),
+        )
+    missing = schema.get("missingValues", [""])
+    tokens = missing if isinstance(missing, list) else []
+    return _Resource(
+        name=name,
+        paths=paths,
+        format=fmt,
+        delimiter=str(dialect.get("delimiter", "\t" if fmt == "tsv" else ",")),
+        quote=str(dialect.get("quoteChar", '"')),
+        header=header,
+        encoding=str(chosen.get("encoding", "utf-8")),
+        fields=fields,
+        missing=tuple(str(t.get("value", "")) if isinstance(t, dict) else str(t) for t in tokens),
+    )
+
+
+def datapackage_header(mapping: Mapping) -> list[str]:
+    resource = _resource(mapping)
+    first = resource.paths[0]
+    if resource.format == "parquet":
+        try:
+            return list(pq.ParquetFile(first).schema_arrow.names)
+        except (pa.ArrowInvalid, OSError) as error:
+            raise SourceReadError(
+                f"not a readable Parquet file ({error})", file=str(first)
+            ) from None
+    if not resource.header:
+        return list(resource.fields)
+    try:
+        with open(first, encoding=resource.encoding, newline="") as handle:
+            row = next(
+                csv.reader(handle, delimiter=resource.delimiter, quotechar=resource.quote), None
+            )
+    except (OSError, UnicodeDecodeError, LookupError) as error:
+        raise SourceReadError(f"cannot read the header ({error})", file=str(first)) from None
+    if not row:
+        raise SourceReadError("the resource file is empty (no header row)", file=str(first))
+    return [name.strip() for name in row]
+
+
+def read_datapackage(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
+    resource = _resource(mapping)
+    for number, path in enumerate(resource.paths):
+        _check_size(path.stat().st_size if path.is_file() else 0, limits, str(path))
+        if resource.format == "parquet":
+            try:
+                table = pq.read_table(path)
+            except (pa.ArrowInvalid, OSError) as error:
+                raise SourceReadError(f"cannot read Parquet ({error})", file=str(path)) from None
+            text = {n: pc.cast(table.column(n), pa.string()) for n in table.column_names}
+            frame = pa.table(text).to_pandas().fillna("")[header]
+        else:
+            # Data Package multipart resources: only the first file carries the header row.
+            skip = 1 if resource.header and number == 0 else 0
+            frame = _read_text(
+                path,
+                file=str(path),
+                delimiter=resource.delimiter,
+                quote=resource.quote,
+                skip_rows=skip,
+                encoding=_arrow_encoding(resource.encoding),
+                columns={f"f{i}": name for i, name in enumerate(header)},
+            )
+        if resource.missing:
+            frame = frame.mask(frame.isin(list(resource.missing)), "")
+        yield from _batches(frame, limits)
