@@ -17,7 +17,7 @@ import pandas as pd
 from harmonize import units, values
 from harmonize.errors import RejectReason
 from harmonize.match import NameMatch
-from harmonize.project import Mapping
+from harmonize.project import STATISTICS, Mapping
 from harmonize.taxa import clean_taxon_names
 from harmonize.temperature import TemperatureCorrection, correct_rates, temperature_problems
 from harmonize.vocab import Vocabulary
@@ -36,21 +36,10 @@ STATISTIC_ALIASES = {
     "q3": "q3", "upper quartile": "q3", "75%": "q3", "p75": "q3",
     "ci_low": "ci_low", "lcl": "ci_low", "lower ci": "ci_low", "ci lower": "ci_low", "ci_lower": "ci_low",
     "ci_high": "ci_high", "ucl": "ci_high", "upper ci": "ci_high", "ci upper": "ci_high", "ci_upper": "ci_high",
+    "variance": "variance", "var": "variance", "s2": "variance", "s²": "variance", "sd2": "variance",
+    "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
 }  # fmt: skip
-STATISTIC_CODES = (
-    "value",
-    "mean",
-    "sd",
-    "se",
-    "n",
-    "min",
-    "max",
-    "median",
-    "q1",
-    "q3",
-    "ci_low",
-    "ci_high",
-)
+STATISTIC_CODES = STATISTICS
 LOCATION_STATISTICS = ("value", "mean", "min", "max", "median", "q1", "q3", "ci_low", "ci_high")
 SPREAD_STATISTICS = ("sd", "se")
 
@@ -242,7 +231,9 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     else:
         assumed = pd.isna(pd.Series(statistic)).to_numpy()
         statistic = np.where(assumed, "mean", statistic)
-        stat_flags = np.where(assumed & ~np.isin(kind, ["category", "text"]), "statistic-assumed-mean", "")
+        stat_flags = np.where(
+            assumed & ~np.isin(kind, ["category", "text"]), "statistic-assumed-mean", ""
+        )
 
     # 6. category traits
     is_category = np.isin(kind, ["category", "text"])
@@ -297,11 +288,13 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     offset = np.zeros(count)
     conversion_flags = np.full(count, "", dtype=object)
     needs_unit = numeric & (statistic != "n") & fate.open
+    # a coefficient of variation is unit-free: its unit can only be %, a fraction or none
+    unit_target = np.where(statistic == "cv", "dimensionless", canonical)
     if needs_unit.any():
         keys = pd.DataFrame(
             {
                 "unit": pd.Series(unit_text, dtype=object).fillna("\0"),
-                "canon": pd.Series(canonical, dtype=object).fillna("\0"),
+                "canon": pd.Series(unit_target, dtype=object).fillna("\0"),
             }
         )
         codes, uniques = pd.factorize(pd.MultiIndex.from_frame(keys[needs_unit]))
@@ -323,18 +316,24 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
                 conversion_flags[rows] = ";".join(conv.flags)
         fate.reject(pd.notna(pd.Series(reason)).to_numpy(), reason, message)
 
-    # 9. converted numbers: location statistics affine, spread statistics by |scale|, n as is
+    # 9. converted numbers: locations affine, SD/SE by |scale|, variance by scale**2 (never an
+    # offset: a spread of temperatures has none), CV by its own unit only, n as is
     is_spread = np.isin(statistic, SPREAD_STATISTICS)
     is_n = statistic == "n"
     number = parsed.value
-    converted = np.where(
-        is_n, number, np.where(is_spread, number * np.abs(scale), number * scale + offset)
+    converted = np.select(
+        [is_n, is_spread, statistic == "variance"],
+        [number, number * np.abs(scale), number * scale**2],
+        number * scale + offset,
     )
 
     # 10. temperature of measurement, in degC
     temperature, temperature_reason = _measurement_temperature(cells, plan)
     correction_label = np.full(count, None, dtype=object)
-    is_rate = per_trait["rate"].astype(bool) & numeric & ~is_n
+    correction_factor = np.full(count, np.nan)
+    as_measured = np.full(count, np.nan)
+    # CV is a ratio and n a count: a temperature factor applies to neither
+    is_rate = per_trait["rate"].astype(bool) & numeric & ~is_n & (statistic != "cv")
     # Correct only where the source declares its measurement temperature; elsewhere rates stay
     # as measured and say so (a flag, not a guess of the temperature).
     uncorrected = np.zeros(count, dtype=bool)
@@ -343,11 +342,22 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     elif plan.correction is not None and is_rate.any():
         bad = is_rate & pd.notna(pd.Series(temperature_reason)).to_numpy()
         fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_reason)
-        corrected, reasons = correct_rates(converted, temperature, plan.correction)
-        bad = is_rate & pd.notna(pd.Series(reasons)).to_numpy()
-        fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_problems(temperature))
-        converted = np.where(is_rate, corrected, converted)
-        correction_label = np.where(is_rate, plan.correction.label(), None)
+        for trait in pd.unique(trait_id[is_rate]):
+            here = is_rate & (trait_id == trait)
+            correction = _correction_for(plan, terms.get(trait))
+            corrected, reasons = correct_rates(converted[here], temperature[here], correction)
+            bad = np.zeros(count, dtype=bool)
+            bad[here] = pd.notna(pd.Series(reasons)).to_numpy()
+            fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_problems(temperature))
+            as_measured[here] = converted[here]
+            factor = correction.factor(temperature[here])
+            # a variance is a squared rate: it takes the factor squared
+            factor = np.where(statistic[here] == "variance", factor**2, factor)
+            correction_factor[here] = factor
+            converted[here] = np.where(
+                statistic[here] == "variance", converted[here] * factor, corrected
+            )
+            correction_label[here] = correction.label()
 
     # 11. flags a reviewer should see
     lo = per_trait["plausible_min"].astype(float)
@@ -394,6 +404,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             "unit": per_trait["unit_text"],
             "ucum": per_trait["ucum"],
             "value": np.where(numeric, converted, np.nan),
+            "value_as_measured": as_measured,
+            "correction_factor": correction_factor,
             "value_text": text_values,
             "qualifier": np.where(qualifier == "", None, qualifier),
             "original_value": cells["raw_value"].to_numpy(),
@@ -437,6 +449,19 @@ def _unmatched_message(name: str, match: NameMatch | None) -> str:
         f"trait name '{name}' needs review: best guess '{match.trait_id}' (score {match.score:.0f}); "
         "accept or reject it in the review sheet, or declare `trait:` in the mapping"
     )
+
+
+def _correction_for(plan: SourcePlan, term) -> TemperatureCorrection:
+    """The project's correction with the Arrhenius temperature of the source, else of the trait."""
+    correction = plan.correction
+    assert correction is not None
+    if correction.method != "arrhenius":
+        return correction
+    if plan.mapping.arrhenius_temperature is not None:
+        return correction.with_arrhenius_temperature(plan.mapping.arrhenius_temperature)
+    if term is not None and term.arrhenius_temperature is not None:
+        return correction.with_arrhenius_temperature(term.arrhenius_temperature)
+    return correction
 
 
 def _name_table(distinct: list[str], plan: SourcePlan) -> pd.DataFrame:

@@ -17,21 +17,14 @@ import pandas as pd
 from harmonize import values
 from harmonize.errors import RejectReason
 from harmonize.project import Mapping
-from harmonize.stats import normalise_summaries
-
-STATISTIC_FIELDS = (
-    "n",
-    "mean",
-    "sd",
-    "se",
-    "min",
-    "max",
-    "median",
-    "q1",
-    "q3",
-    "ci_low",
-    "ci_high",
+from harmonize.stats import (
+    STATISTIC_COLUMNS,
+    combine_group_summaries,
+    normalise_summaries,
+    summarise_individuals,
 )
+
+STATISTIC_FIELDS = tuple(c for c in STATISTIC_COLUMNS if c != "ci_level")
 LONG_GROUP = (
     "taxon_verbatim",
     "sex",
@@ -44,6 +37,7 @@ LONG_GROUP = (
 CARRIED = (
     "taxon_verbatim", "taxon", "taxon_qualifier", "sex", "life_stage", "site", "date", "trait_id", "role",
     "unit", "ucum", "unit_origin", "match_method", "measurement_temperature", "temperature_correction",
+    "correction_factor",
 )  # fmt: skip
 REJECT_COLUMNS = [
     "source_row",
@@ -174,6 +168,8 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
         ].copy()
         cells_written += len(category_rows)
 
+    if mapping.combine_groups:
+        good = combine_subgroups(good, mapping.combine_groups)
     out = pd.concat([good, category_rows], ignore_index=True)
     out = out.drop(
         columns=[c for c in ("cell_flags", "reason", "message", "group") if c in out.columns]
@@ -182,6 +178,101 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
     out["source_id"] = mapping.source
     out["record_id"] = record_ids(out, mapping.source)
     return SummaryResult(out, pd.concat(rejected, ignore_index=True), cells_written)
+
+
+def combine_subgroups(summaries: pd.DataFrame, split_by: tuple[str, ...]) -> pd.DataFrame:
+    """Pool populations reported separately by `split_by` (e.g. sex) into one row per rest-of-key.
+
+    n, mean and SD are pooled with the Cochrane Handbook (v6.4) Table 6.5.a formula (via
+    `stats.combine_group_summaries`); a group missing n, mean or SD in any part gets no pooled
+    statistics rather than a guess. Other statistics (median, quartiles, CI) do not pool and are
+    dropped from the combined row; its provenance lists every part.
+    """
+    keep = [c for c in ("taxon_verbatim", "taxon", "taxon_qualifier", "sex", "life_stage", "site", "date",
+                        "trait_id", "measurement_temperature") if c not in split_by]  # fmt: skip
+    work = summaries.copy()
+    for column in keep:
+        work[column] = work[column].astype(object).where(work[column].notna(), "\0")
+    parts = work.groupby(keep, sort=False, dropna=False)
+    combined = combine_group_summaries(work[[*keep, "n", "mean", "sd"]], keep)
+    first = parts.first().reset_index()
+    merged = first.drop(columns=["n", "mean", "sd"]).merge(
+        combined[[*keep, "n", "mean", "sd"]], on=keep, how="left"
+    )
+    merged["source_row"] = parts["source_row"].min().to_numpy()
+    merged["original_name"] = parts["original_name"].agg(_joined).to_numpy()
+    merged["original_unit"] = parts["original_unit"].agg(_joined).to_numpy()
+    merged["flags"] = parts["flags"].agg(_flag_union).to_numpy()
+    sizes = parts.size().to_numpy()
+    merged["flags"] = [
+        _flag_union(pd.Series([f, f"combined-groups:{'+'.join(split_by)}" if k > 1 else None]))
+        for f, k in zip(merged["flags"], sizes, strict=True)
+    ]
+    pooled = sizes > 1
+    merged.loc[pooled, "sd_method"] = "combined groups"
+    merged.loc[pooled, "mean_method"] = "combined groups"
+    merged["se"] = np.where(pooled, merged["sd"] / np.sqrt(merged["n"].astype(float)), merged["se"])
+    for column in (
+        "median",
+        "q1",
+        "q3",
+        "min",
+        "max",
+        "ci_low",
+        "ci_high",
+        "ci_level",
+        "variance",
+        "cv",
+    ):
+        if column in merged.columns:
+            merged.loc[pooled, column] = np.nan
+    for column in split_by:
+        merged.loc[pooled, column] = None
+    for column in keep:
+        as_object = merged[column].astype(object)
+        merged[column] = as_object.where(as_object != "\0", None)
+    merged["measurement_temperature"] = pd.to_numeric(
+        merged["measurement_temperature"], errors="coerce"
+    )
+    return merged
+
+
+def aggregate_individuals(values: pd.DataFrame, by: tuple[str, ...], source: str) -> pd.DataFrame:
+    """Population summaries computed from a source's individual values (never mixed back in).
+
+    Groups by taxon, trait, `by` (context keys such as site or sex) and, for rates that were not
+    temperature-corrected, the measurement temperature. n, mean, SD (ddof=1), SE, median,
+    quartiles and range come from `stats.summarise_individuals`; every row says
+    'computed from individuals'.
+    """
+    numeric = values[values["value"].notna()].copy()
+    if numeric.empty:
+        return pd.DataFrame()
+    keys = ["taxon", "trait_id", *by, "measurement_temperature"]
+    # a corrected rate is already at the reference temperature: pool across test temperatures
+    numeric.loc[numeric["temperature_correction"].notna(), "measurement_temperature"] = np.nan
+    for column in keys:
+        numeric[column] = numeric[column].astype(object).where(numeric[column].notna(), "\0")
+    summary = summarise_individuals(numeric, keys)
+    grouped = numeric.groupby(keys, sort=True, dropna=False)
+    carried = grouped[["role", "unit", "ucum", "temperature_correction"]].first().reset_index()
+    out = summary.merge(carried, on=keys, how="left")
+    out["source_row"] = grouped["source_row"].min().to_numpy()
+    out["original_name"] = grouped["original_name"].agg(_joined).to_numpy()
+    out["original_unit"] = grouped["original_unit"].agg(_joined).to_numpy()
+    out["match_method"] = grouped["match_method"].first().to_numpy()
+    out["match_score"] = grouped["match_score"].min().to_numpy()
+    for column in keys:
+        as_object = out[column].astype(object)
+        out[column] = as_object.where(as_object != "\0", None)
+    out["taxon_verbatim"] = out["taxon"]
+    out["measurement_temperature"] = pd.to_numeric(out["measurement_temperature"], errors="coerce")
+    out["sd_method"] = "computed from individuals"
+    out["mean_method"] = "computed from individuals"
+    out["flags"] = "computed-from-individuals"
+    out["source_id"] = source
+    out["record_id"] = record_ids(out.assign(column="aggregate:" + "+".join(by)), source)
+    return out
 
 
 def record_ids(frame: pd.DataFrame, source: str) -> np.ndarray:

@@ -11,6 +11,8 @@ from dataclasses import dataclass
 
 import pandas as pd
 
+from harmonize import stats
+
 
 @dataclass(frozen=True)
 class Column:
@@ -50,16 +52,8 @@ PANDAS_DTYPES = {
 
 ROLES = ("parameter", "threshold", "structure", "estimation", "forcing", "descriptive")
 MATCH_METHODS = ("exact", "synonym", "fuzzy", "manual", "declared", "unmatched", "rejected")
-SD_METHODS = (
-    "given",
-    "from se",
-    "from ci",
-    "from iqr and range (estimate)",
-    "from iqr (estimate)",
-    "from range (estimate)",
-    "computed from individuals",
-    "combined groups",
-)
+SD_METHODS = stats.SD_METHODS
+MEAN_METHODS = stats.MEAN_METHODS
 
 _PROVENANCE = (
     Column("source_id", "string", "Source the value came from (see `sources`).", required=True),
@@ -157,7 +151,21 @@ INDIVIDUAL_VALUES = Resource(
         *_CONTEXT,
         Column("individual_id", "string", "Identifier of the individual as given."),
         *_TRAIT,
-        Column("value", "number", "Value in the canonical unit (empty for categories)."),
+        Column(
+            "value",
+            "number",
+            "Value in the canonical unit (empty for categories); temperature-corrected where temperature_correction says so.",
+        ),
+        Column(
+            "value_as_measured",
+            "number",
+            "For a temperature-corrected rate: the value in the canonical unit before correction.",
+        ),
+        Column(
+            "correction_factor",
+            "number",
+            "For a temperature-corrected rate: value = value_as_measured x correction_factor.",
+        ),
         Column("value_text", "string", "Category or text value (for category and text traits)."),
         Column("qualifier", "string", "Qualifier given with the number (<, >, <=, >=, ~)."),
         Column("original_value", "string", "Cell exactly as written.", required=True),
@@ -196,13 +204,25 @@ POPULATION_SUMMARIES = Resource(
         Column("ci_low", "number", "Lower confidence limit of the mean."),
         Column("ci_high", "number", "Upper confidence limit of the mean."),
         Column("ci_level", "number", "Confidence level of the interval (e.g. 0.95)."),
+        Column("variance", "number", "Variance, in the square of the unit."),
+        Column("cv", "number", "Coefficient of variation as a fraction (unit-free)."),
         Column(
             "value_text",
             "string",
             "Category value for category traits (e.g. thermoregulatory mode).",
         ),
         Column("sd_method", "string", "How sd was obtained.", enum=SD_METHODS),
-        Column("mean_method", "string", "How mean was obtained (given, or estimated from median)."),
+        Column(
+            "mean_method",
+            "string",
+            "How mean was obtained (given, or estimated from median).",
+            enum=MEAN_METHODS,
+        ),
+        Column(
+            "correction_factor",
+            "number",
+            "For temperature-corrected rates: factor applied to every statistic but n and cv (variance: its square).",
+        ),
         *_ORIGINAL,
         *_TEMPERATURE,
         *_FLAGS,

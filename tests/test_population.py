@@ -1,0 +1,194 @@
+"""Population statistics and temperature correction through the whole build (issue: population
+summaries and temperature correction). Formulas are checked in tests/test_stats.py and
+tests/test_temperature.py; here the build must apply them to the right cells, in the right units,
+and label every derived number.
+"""
+
+from __future__ import annotations
+
+import math
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from harmonize.build import build_tables
+from harmonize.project import load_project
+
+palmerpenguins = pytest.importorskip("palmerpenguins")
+
+
+def project(root: Path, table: str, mapping: str, extra: str = "", name: str = "t.csv") -> Path:
+    (root / "mappings").mkdir(parents=True, exist_ok=True)
+    (root / name).write_text(table, encoding="utf-8")
+    (root / "harmonize.yaml").write_text("name: t\n" + textwrap.dedent(extra), encoding="utf-8")
+    (root / "mappings" / "t.yaml").write_text(
+        f"source: t\npath: ../{name}\n" + textwrap.dedent(mapping), encoding="utf-8"
+    )
+    return root
+
+
+LONG_POP = """\
+level: population
+layout: long
+context: {taxon: species, sex: sex}
+columns: {trait: trait, value: value, unit: unit, statistic: statistic, n: n}
+"""
+
+
+def summaries(root: Path) -> pd.DataFrame:
+    frames, accounts, _ = build_tables(load_project(root))
+    assert all(a.balanced for a in accounts)
+    return frames["population_summaries"]
+
+
+def test_sd_from_variance_and_from_cv(tmp_path: Path) -> None:
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body mass,mean,50,g,10\n"
+        "Sorex minutus,f,body mass,cv,10,%,10\n"  # CV = SD/mean: SD = 0.10 x 50 g = 5 g
+        "Sorex minutus,m,body mass,mean,0.05,kg,12\n"
+        "Sorex minutus,m,body mass,variance,0.000004,kg,12\n"  # 4e-6 kg^2 = 4 g^2: SD = 2 g
+    )
+    out = summaries(project(tmp_path, table, LONG_POP)).set_index("sex")
+    assert out.loc["f", "sd"] == pytest.approx(5.0) and out.loc["f", "sd_method"] == "from cv"
+    assert out.loc["f", "cv"] == pytest.approx(0.10)  # percent became a fraction
+    # variance scales by the square of the unit factor (1 kg = 1000 g: x 1e6), never by an offset
+    assert out.loc["m", "variance"] == pytest.approx(4.0)
+    assert out.loc["m", "sd"] == pytest.approx(2.0) and out.loc["m", "sd_method"] == "from variance"
+    assert out.loc["m", "mean"] == pytest.approx(50.0)
+
+
+def test_temperature_sd_has_no_offset(tmp_path: Path) -> None:
+    # an SD of 0.64 K is an SD of 0.64 degC (SI Brochure 9th ed. 2.3.1: a temperature difference
+    # has the same value in K and degC); an SD of 1.8 degF is 1 degC (NIST SP 811 B.9)
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body temperature,mean,310.15,K,8\n"
+        "Sorex minutus,f,body temperature,sd,0.64,K,8\n"
+        "Sorex minutus,m,body temperature,mean,98.6,degF,8\n"
+        "Sorex minutus,m,body temperature,sd,1.8,degF,8\n"
+    )
+    out = summaries(project(tmp_path, table, LONG_POP)).set_index("sex")
+    assert out.loc["f", "mean"] == pytest.approx(37.0) and out.loc["f", "sd"] == pytest.approx(0.64)
+    assert out.loc["m", "mean"] == pytest.approx(37.0) and out.loc["m", "sd"] == pytest.approx(1.0)
+
+
+def test_rates_corrected_with_factor_and_original_kept(tmp_path: Path) -> None:
+    table = "species,temp,vo2,mass\nSorex minutus,30,2.0,4.0\nSorex minutus,20,1.0,4.1\n"
+    mapping = """\
+    level: individual
+    context: {taxon: species, temperature: {column: temp, unit: degC}}
+    traits: {vo2: {trait: oxygen_consumption_rate, unit: mL/h}, mass: {trait: body_mass_wet, unit: g}}
+    """
+    extra = (
+        "temperature_correction: {method: arrhenius, reference: 20, arrhenius_temperature: 8000}\n"
+    )
+    frames, _, _ = build_tables(load_project(project(tmp_path, table, mapping, extra)))
+    values = frames["individual_values"].set_index(["trait_id", "source_row"])
+    # rate_ref = rate x exp(T_A/T - T_A/T_ref), T_A = 8000 K (common practice, no single source)
+    factor = math.exp(8000 / 303.15 - 8000 / 293.15)
+    hot = values.loc[("oxygen_consumption_rate", 1)]
+    assert hot["value_as_measured"] == pytest.approx(2.0)
+    assert hot["correction_factor"] == pytest.approx(factor, rel=1e-12)
+    assert hot["value"] == pytest.approx(2.0 * factor, rel=1e-12)
+    assert "T_A=8000 K" in hot["temperature_correction"]
+    assert values.loc[("oxygen_consumption_rate", 2), "correction_factor"] == pytest.approx(1.0)
+    mass = values.loc[("body_mass_wet", 1)]  # never correct a non-rate
+    assert pd.isna(mass["correction_factor"]) and pd.isna(mass["temperature_correction"])
+    assert mass["value"] == pytest.approx(4.0)
+
+
+def test_source_arrhenius_temperature_overrides_project(tmp_path: Path) -> None:
+    table = "species,temp,vo2\nSorex minutus,30,2.0\n"
+    mapping = """\
+    level: individual
+    arrhenius_temperature: 6000
+    context: {taxon: species, temperature: {column: temp, unit: degC}}
+    traits: {vo2: {trait: oxygen_consumption_rate, unit: mL/h}}
+    """
+    extra = "temperature_correction: {method: arrhenius, reference: 20}\n"
+    frames, _, _ = build_tables(load_project(project(tmp_path, table, mapping, extra)))
+    row = frames["individual_values"].iloc[0]
+    assert row["correction_factor"] == pytest.approx(
+        math.exp(6000 / 303.15 - 6000 / 293.15), rel=1e-12
+    )
+
+
+def test_q10_correction_of_a_population_summary_scales_every_statistic(tmp_path: Path) -> None:
+    table = (
+        "species,sex,temp,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,30,oxygen consumption rate,mean,4.0,mL/h,10\n"
+        "Sorex minutus,f,30,oxygen consumption rate,sd,1.0,mL/h,10\n"
+    )
+    mapping = LONG_POP.replace(
+        "{taxon: species, sex: sex}",
+        "{taxon: species, sex: sex, temperature: {column: temp, unit: degC}}",
+    )
+    extra = "temperature_correction: {method: q10, reference: 20, q10: 2}\n"
+    out = summaries(project(tmp_path, table, mapping, extra)).iloc[0]
+    # Q10 = 2 and 10 degC cooler: every rate statistic halves (Q10 definition)
+    assert out["mean"] == pytest.approx(2.0) and out["sd"] == pytest.approx(0.5)
+    assert out["correction_factor"] == pytest.approx(0.5)
+
+
+@pytest.fixture(scope="module")
+def penguins() -> pd.DataFrame:
+    return palmerpenguins.load_penguins().dropna(subset=["sex", "body_mass_g"])
+
+
+def test_combined_sexes_equal_the_pooled_raw_data(tmp_path: Path, penguins: pd.DataFrame) -> None:
+    # per species and sex: n, mean, SD of body mass as a paper would report them
+    by_sex = (
+        penguins.groupby(["species", "sex"])["body_mass_g"]
+        .agg(["count", "mean", "std"])
+        .reset_index()
+    )
+    rows = ["species,sex,trait,statistic,value,unit,n"]
+    for r in by_sex.itertuples():
+        rows.append(f"{r.species},{r.sex},body mass,mean,{r.mean!r},g,{r.count}")
+        rows.append(f"{r.species},{r.sex},body mass,sd,{r.std!r},g,{r.count}")
+    mapping = LONG_POP + "combine_groups: [sex]\n"
+    out = summaries(project(tmp_path, "\n".join(rows) + "\n", mapping)).set_index("taxon_verbatim")
+    # Cochrane Handbook v6.4 Table 6.5.a, checked against the raw pooled data (palmerpenguins)
+    pooled = penguins.groupby("species")["body_mass_g"].agg(["count", "mean", "std"])
+    for species, want in pooled.iterrows():
+        got = out.loc[species]
+        assert got["n"] == want["count"]
+        assert got["mean"] == pytest.approx(want["mean"], rel=1e-9)
+        assert got["sd"] == pytest.approx(want["std"], rel=1e-9)
+        assert got["sd_method"] == "combined groups" and "combined-groups:sex" in got["flags"]
+        assert pd.isna(got["sex"])
+
+
+def test_individuals_aggregated_into_summaries_without_mixing(
+    tmp_path: Path, penguins: pd.DataFrame
+) -> None:
+    penguins[["species", "island", "sex", "body_mass_g"]].to_csv(tmp_path / "p.csv", index=False)
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "t.yaml").write_text(
+        "source: t\npath: ../p.csv\nlevel: individual\ncontext: {taxon: species, sex: sex, site: island}\n"
+        "traits: {body_mass_g: {trait: body_mass_wet, unit: g}}\n",
+        encoding="utf-8",
+    )
+    (tmp_path / "harmonize.yaml").write_text(
+        "name: t\naggregate_individuals: {by: [sex]}\n", encoding="utf-8"
+    )
+    frames, accounts, _ = build_tables(load_project(tmp_path))
+    assert len(frames["individual_values"]) == len(penguins)  # nothing moved out of individuals
+    out = frames["population_summaries"].set_index(["taxon", "sex"])
+    want = penguins.groupby(["species", "sex"])["body_mass_g"].agg(
+        ["count", "mean", "std", "median"]
+    )
+    for key, row in want.iterrows():
+        got = out.loc[key]
+        assert got["n"] == row["count"]
+        np.testing.assert_allclose(
+            [got["mean"], got["sd"], got["median"]],
+            [row["mean"], row["std"], row["median"]],
+            rtol=1e-9,
+        )
+        assert got["sd_method"] == "computed from individuals"
+    assert accounts[0].values_written == len(penguins)  # derived rows are not counted as cells
