@@ -244,3 +244,26 @@ def test_remarks_name_the_trait_label(exported):
     expected = facts[DWC + "measurementType"].map(labels)
     assert (stated.to_numpy() == expected.to_numpy()).all()
     assert re.fullmatch(r"[a-z_]+", facts[DWC + "measurementType"].iloc[0])
+
+
+def test_cli_export_writes_both_archives(exported, tmp_path, capsys):
+    from harmonize.cli.main import main
+
+    package, summary = exported
+    target = tmp_path / "cli.zip"
+    with pytest.raises(SystemExit) as exited:
+        main(["export", "dwca", str(package), "-o", str(target)])
+    assert exited.value.code == 0
+    out = capsys.readouterr().out
+    assert f"{summary.occurrences} occurrences" in out
+    assert target.read_bytes() == summary.archive.read_bytes()
+    assert summaries_archive_path(target).is_file()
+
+
+def test_cli_export_of_a_missing_package_is_bad_input(tmp_path, capsys):
+    from harmonize.cli.main import main
+
+    with pytest.raises(SystemExit) as exited:
+        main(["export", "dwca", str(tmp_path / "nothing"), "-o", str(tmp_path / "a.zip")])
+    assert exited.value.code == 3  # README exit codes: 3 = bad input
+    assert "datapackage.json" in capsys.readouterr().err
