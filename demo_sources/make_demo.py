@@ -31,7 +31,8 @@ NORTH_FILE = Path("north/lizards.csv")
 SOUTH_FILE = Path("south/species_means.parquet")
 EAST_FILE = Path("east/respirometry.csv")
 WEST_FILE = Path("west/shrews.tsv")
-DEMO_FILES = (NORTH_FILE, SOUTH_FILE, EAST_FILE, WEST_FILE)
+WEST_SEX_FILE = Path("west/shrews_by_sex.csv")
+DEMO_FILES = (NORTH_FILE, SOUTH_FILE, EAST_FILE, WEST_FILE, WEST_SEX_FILE)
 
 # Exact conversion factors used to express invented canonical values in the stations' units.
 # NIST SP 811 (2008) Appendix B.8: 1 oz (avoirdupois) = 28.349523125 g, 1 in = 25.4 mm,
@@ -445,6 +446,71 @@ def west_rows(rng: np.random.Generator) -> list[list[str]]:
 # ---------------------------------------------------------------- entry point
 
 
+WEST_SEX_HEADER = ("species", "site", "sex", "trait", "statistic", "value", "unit", "n")
+
+
+def west_by_sex_rows(rng: np.random.Generator) -> list[list[str]]:
+    """Invented shrew summaries reported per sex (as many papers do), to be pooled by the build.
+
+    Dispersion is given three ways: SD, variance and coefficient of variation.
+    """
+    rows: list[list[str]] = []
+    for species, mass_g, length_mm in (
+        ("Sorex araneus", 8.9, 72.0),
+        ("Crocidura russula", 10.6, 71.0),
+    ):
+        for sex, shift in (("f", 0.96), ("m", 1.04)):
+            n = int(rng.integers(8, 20))
+            mean = mass_g * shift * rng.normal(1, 0.02)
+            sd = 0.11 * mean
+            rows.append(
+                [species, "W1 lower meadow", sex, "body mass", "mean", f"{mean:.2f}", "g", str(n)]
+            )
+            if sex == "f":
+                rows.append(
+                    [species, "W1 lower meadow", sex, "body mass", "sd", f"{sd:.3f}", "g", str(n)]
+                )
+            else:
+                rows.append(
+                    [
+                        species,
+                        "W1 lower meadow",
+                        sex,
+                        "body mass",
+                        "variance",
+                        f"{sd**2:.4f}",
+                        "g",
+                        str(n),
+                    ]
+                )
+            length = length_mm * shift * rng.normal(1, 0.01)
+            rows.append(
+                [
+                    species,
+                    "W1 lower meadow",
+                    sex,
+                    "head-body length",
+                    "mean",
+                    f"{length:.1f}",
+                    "mm",
+                    str(n),
+                ]
+            )
+            rows.append(
+                [
+                    species,
+                    "W1 lower meadow",
+                    sex,
+                    "head-body length",
+                    "cv",
+                    f"{rng.uniform(4, 6):.1f}",
+                    "%",
+                    str(n),
+                ]
+            )
+    return rows
+
+
 def write_demo(out_dir: Path) -> list[Path]:
     """Write every demo table below `out_dir`; returns the written paths (relative)."""
     out_dir = Path(out_dir)
@@ -457,6 +523,9 @@ def write_demo(out_dir: Path) -> list[Path]:
     write_parquet(south, out_dir / SOUTH_FILE)
     _write_delimited(out_dir / EAST_FILE, EAST_HEADER, east, ",", "utf-8")
     _write_delimited(out_dir / WEST_FILE, WEST_HEADER, west, "\t", "utf-8")
+    # its own generator, so adding this table left the other files unchanged
+    by_sex = west_by_sex_rows(np.random.default_rng(SEED + 5))
+    _write_delimited(out_dir / WEST_SEX_FILE, WEST_SEX_HEADER, by_sex, ",", "utf-8")
     return list(DEMO_FILES)
 
 

@@ -54,7 +54,9 @@ def test_rows_read_match_the_files(demo_report, demo_copy: Path) -> None:
     east = pd.read_csv(demo_copy / "demo_sources/east/respirometry.csv")
     south = pd.read_parquet(demo_copy / "demo_sources/south/species_means.parquet")
     west = pd.read_csv(demo_copy / "demo_sources/west/shrews.tsv", sep="\t")
+    by_sex = pd.read_csv(demo_copy / "demo_sources/west/shrews_by_sex.csv")
     assert counts == {
+        "west-shrews-by-sex": len(by_sex),
         "north-lizards": len(north),
         "east-respirometry": len(east),
         "south-species-means": len(south),
@@ -89,7 +91,15 @@ def test_individual_and_population_values_are_kept_apart(demo_report) -> None:
     population = pd.read_csv(demo_report.output / "population_summaries.csv")
     sources = pd.read_csv(demo_report.output / "sources.csv").set_index("source_id")
     assert set(sources.loc[individual["source_id"].unique(), "level"]) == {"individual"}
-    assert set(sources.loc[population["source_id"].unique(), "level"]) == {"population"}
+    # summaries computed from individuals say so; every other summary comes from a population source
+    computed = population["sd_method"] == "computed from individuals"
+    assert computed.any()
+    assert set(sources.loc[population.loc[computed, "source_id"].unique(), "level"]) == {
+        "individual"
+    }
+    assert set(sources.loc[population.loc[~computed, "source_id"].unique(), "level"]) == {
+        "population"
+    }
     # estimated dispersion is labelled as such, never passed off as given
     estimated = population[population["sd_method"].fillna("").str.contains("estimate")]
     assert len(estimated) > 0

@@ -31,7 +31,7 @@ INVENTED = "Invented demo data – not real measurements"
 # The mapping grammar of the project's design contract (DESIGN.md "Source mapping").
 MAPPING_KEYS = {
     "source", "path", "format", "read", "citation", "licence", "level", "layout", "context",
-    "ignore", "traits", "columns", "ci_level",
+    "ignore", "traits", "columns", "ci_level", "combine_groups",
 }  # fmt: skip
 READ_KEYS = {"delimiter", "decimal", "thousands", "encoding", "missing"}
 CONTEXT_KEYS = {
@@ -41,6 +41,7 @@ TRAIT_KEYS = {"trait", "unit", "statistic", "role"}
 LONG_KEYS = {"trait", "value", "unit", "statistic", "n"}
 STATISTICS = {
     "value", "mean", "sd", "se", "n", "min", "max", "median", "q1", "q3", "ci_low", "ci_high",
+    "variance", "cv",
 }  # fmt: skip
 
 
@@ -136,7 +137,13 @@ def test_readme_says_the_data_are_invented():
 
 def test_there_is_one_mapping_per_demo_table():
     sources = {m["source"] for m in map(_mapping, MAPPING_FILES)}
-    assert sources == {"north-lizards", "south-species-means", "east-respirometry", "west-shrews"}
+    assert sources == {
+        "north-lizards",
+        "south-species-means",
+        "east-respirometry",
+        "west-shrews",
+        "west-shrews-by-sex",
+    }
 
 
 @pytest.mark.parametrize("mapping_file", MAPPING_FILES, ids=lambda p: p.stem)
