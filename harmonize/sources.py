@@ -8,6 +8,7 @@ module does not parse numbers, match names or convert units: it only reads and r
 
 from __future__ import annotations
 
+import codecs
 import csv
 import difflib
 import hashlib
@@ -71,17 +72,44 @@ def _encoding(mapping: Mapping) -> str:
     return "utf-8-sig" if encoding in ("utf-8", "utf8") else mapping.read.encoding
 
 
+_HEADER_MAX_BYTES = 1 << 24
+_DELIMITER_GUESSES = (",", ";", "\t", "|")
+
+
+def _header_text(mapping: Mapping) -> str:
+    """The header record's text, decoded on its own.
+
+    Decoding only the header's bytes keeps a bad byte further down from being reported as a
+    header problem; the data rows are decoded (and their errors located) by the batch reader.
+    """
+    encoding = _encoding(mapping)
+    if codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")):
+        with open(mapping.path, encoding=encoding, newline="") as handle:
+            return handle.readline(_HEADER_MAX_BYTES)
+    with open(mapping.path, "rb") as handle:
+        raw = handle.readline(_HEADER_MAX_BYTES)
+        # a quoted header name may hold a line break: read on while a quote is open
+        while raw.count(b'"') % 2 and len(raw) < _HEADER_MAX_BYTES:
+            more = handle.readline(_HEADER_MAX_BYTES)
+            if not more:
+                break
+            raw += more
+    return raw.decode(encoding)
+
+
 def _delimited_header(mapping: Mapping) -> list[str]:
     try:
-        with open(mapping.path, encoding=_encoding(mapping), newline="") as handle:
-            reader = csv.reader(handle, delimiter=_delimiter(mapping))
-            header = next(reader, None)
+        header = next(csv.reader([_header_text(mapping)], delimiter=_delimiter(mapping)), None)
     except UnicodeDecodeError as error:
         raise SourceReadError(
             f"header is not valid {mapping.read.encoding} text",
             file=str(mapping.path),
             row=0,
             hint=f"declare the file's encoding in the mapping's read options ({error.reason})",
+        ) from None
+    except csv.Error as error:
+        raise SourceReadError(
+            f"the header row cannot be read ({error})", file=str(mapping.path), row=0
         ) from None
     if not header:
         raise SourceReadError("the file is empty (no header row)", file=str(mapping.path))
@@ -109,6 +137,40 @@ def _locate_bad_row(mapping: Mapping, width: int) -> int | None:
     except csv.Error:
         return None
     return None
+
+
+def _encoding_problem(mapping: Mapping, header: list[str]) -> SourceReadError:
+    """Only on the error path: name the first cell whose bytes do not decode, and the fix."""
+    declared = mapping.read.encoding
+    row = column = None
+    bad = ""
+    decodes_elsewhere = False  # other non-ASCII text decodes: the file mixes two encodings
+    try:
+        with open(
+            mapping.path, encoding=_encoding(mapping), newline="", errors="surrogateescape"
+        ) as handle:
+            for number, fields in enumerate(csv.reader(handle, delimiter=_delimiter(mapping))):
+                for index, cell in enumerate(fields):
+                    if not cell.isascii():
+                        undecodable = [ch for ch in cell if "\udc80" <= ch <= "\udcff"]
+                        if undecodable and row is None:
+                            row = number
+                            column = header[index] if index < len(header) else None
+                            bad = ", ".join(f"0x{ord(ch) - 0xDC00:02x}" for ch in undecodable[:3])
+                        decodes_elsewhere |= len(undecodable) < sum(not c.isascii() for c in cell)
+    except csv.Error:
+        pass
+    if decodes_elsewhere:
+        hint = (
+            f"the file mixes encodings: other cells are valid {declared}; re-save the file "
+            f"with one encoding (fix this cell) rather than declaring another encoding"
+        )
+    else:
+        hint = "declare the file's encoding in the mapping's read options, e.g. encoding: latin-1"
+    what = f"byte {bad} is" if bad else "text is"
+    return SourceReadError(
+        f"{what} not valid {declared}", file=str(mapping.path), row=row, column=column, hint=hint
+    )
 
 
 def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
@@ -153,11 +215,7 @@ def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iter
                 hint=f"check quoting and the declared delimiter {_delimiter(mapping)!r}",
             ) from None
         if "UTF8" in text or "utf8" in text or "decode" in text.lower():
-            raise SourceReadError(
-                f"text is not valid {mapping.read.encoding}",
-                file=str(mapping.path),
-                hint="declare the file's encoding in the mapping's read options, e.g. encoding: latin-1",
-            ) from None
+            raise _encoding_problem(mapping, header) from None
         raise SourceReadError(
             f"cannot read as {mapping.format} ({text.splitlines()[0]})", file=str(mapping.path)
         ) from None
