@@ -83,6 +83,8 @@ def source_key(
         "code": code_fingerprint(),
         "source_sha256": source_sha256,
         "mapping": described,
+        # the file too (when there is one), so that nothing a parsed mapping leaves out is missed
+        "mapping_file_sha256": _file_digest(mapping.mapping_file),
         "decisions_sha256": _file_digest(mapping.decisions_file),
         "vocabulary_version": vocabulary_version,
         "matching": dict(sorted(project.matching.items())),

@@ -5,6 +5,7 @@ from __future__ import annotations
 import click
 
 from harmonize.build import BuildReport
+from harmonize.changes import report_text
 
 
 def _table(header: list[str], rows: list[list[str]]) -> list[str]:
@@ -64,6 +65,18 @@ def summary_lines(report: BuildReport) -> list[str]:
         f"accounting: rows x trait cells = written + rejected + empty for every source: {'yes' if report.balanced else 'NO'}",
     ]
     lines += [f"frictionless validation: {state}"]
+    if report.changes is not None:
+        lines += ["", *report_text(report.changes)]
+        if report.changes_files:
+            lines.append(f"change report: {report.changes_files[0]}")
+    if report.lock_taken_over:
+        lines.append(
+            f"took over a stale lock of a build that no longer runs ({report.lock_taken_over})"
+        )
+    if report.leftovers_removed:
+        lines.append(
+            f"removed leftovers of an interrupted build: {', '.join(report.leftovers_removed)}"
+        )
     return lines
 
 
@@ -74,6 +87,8 @@ def progress_printer(quiet: bool):
     def show(event: str, detail: dict) -> None:
         if event == "source":
             click.echo(f"reading {detail['source']} ...", err=True)
+        elif event == "source-reused":
+            click.echo(f"reusing {detail['source']} (unchanged since the last build)", err=True)
         elif event == "batch":
             click.echo(f"  {detail['source']}: {detail['rows']} rows", err=True)
         elif event == "write":
