@@ -229,13 +229,59 @@ def _as_text(array: pa.ChunkedArray) -> pa.ChunkedArray:
     return pc.cast(array, pa.string())
 
 
+_NESTED_TYPES = (
+    pa.types.is_list,
+    pa.types.is_large_list,
+    pa.types.is_fixed_size_list,
+    pa.types.is_struct,
+    pa.types.is_map,
+    pa.types.is_union,
+)
+
+
+def _parquet_columns(mapping: Mapping, parquet: pq.ParquetFile) -> list[str]:
+    """Columns to read: all but the ignored ones, which may hold anything; nested ones refused."""
+    schema = parquet.schema_arrow
+    wanted = [name for name in schema.names if name not in mapping.ignore]
+    for name in wanted:
+        field_type = schema.field(name).type
+        if any(test(field_type) for test in _NESTED_TYPES):
+            raise SourceReadError(
+                f"column holds nested values ({field_type}), not one value per cell",
+                file=str(mapping.path),
+                column=name,
+                hint="flatten it into plain columns before harmonising, or list it under `ignore`",
+            )
+    return wanted
+
+
+def _column_as_text(mapping: Mapping, table: pa.Table, name: str, first_row: int) -> pa.Array:
+    try:
+        return _as_text(table.column(name))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as error:
+        raise SourceReadError(
+            f"column of type {table.column(name).type} cannot be read as text "
+            f"({str(error).splitlines()[0]})",
+            file=str(mapping.path),
+            row=first_row,
+            column=name,
+            hint="store trait values as numbers or UTF-8 text, or list the column under `ignore`",
+        ) from None
+
+
 def _read_parquet(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
     try:
         parquet = pq.ParquetFile(mapping.path, pre_buffer=False, buffer_size=1 << 20)
-        for batch in parquet.iter_batches(batch_size=limits.batch_rows):
+        wanted = _parquet_columns(mapping, parquet)
+        first_row = 1
+        for batch in parquet.iter_batches(batch_size=limits.batch_rows, columns=wanted):
             table = pa.Table.from_batches([batch])
-            columns = {name: _as_text(table.column(name)) for name in table.column_names}
+            columns = {
+                name: _column_as_text(mapping, table, name, first_row)
+                for name in table.column_names
+            }
             frame = pa.table(columns).to_pandas()
+            first_row += len(frame)
             yield frame.fillna("")
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as error:
         raise SourceReadError(f"cannot read Parquet ({error})", file=str(mapping.path)) from None
