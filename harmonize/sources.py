@@ -327,13 +327,22 @@ def read_header(mapping: Mapping) -> list[str]:
 def _require(mapping: Mapping, header: list[str], column: str, key: str) -> None:
     if column not in header:
         close = difflib.get_close_matches(column, header, n=1)
+        other = [d for d in _DELIMITER_GUESSES if d != _delimiter(mapping) and d in "".join(header)]
+        if len(header) == 1 and other and mapping.format in ("csv", "tsv"):
+            # the whole header came back as one name: the file uses another delimiter
+            hint = (
+                f"the header was read as one column; the file seems to use {other[0]!r}: "
+                f"declare `read: {{delimiter: {other[0]!r}}}` in the mapping"
+            )
+        elif close:
+            hint = f"did you mean '{close[0]}'?"
+        else:
+            hint = f"columns are: {', '.join(header[:12])}"
         raise ConfigError(
             f"declared column '{column}' ({key}) is not in {mapping.path.name}",
             file=str(mapping.mapping_file),
             column=column,
-            hint=f"did you mean '{close[0]}'?"
-            if close
-            else f"columns are: {', '.join(header[:12])}",
+            hint=hint,
         )
 
 
