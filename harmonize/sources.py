@@ -444,6 +444,52 @@ def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.Dat
     return cells[list(CELL_COLUMNS)]
 
 
+# ---------------------------------------------------------------- size limits
+# Oversized trait values become `cell-too-large` rejects (see `values`). Names, units, statistics
+# and context are not values: one of them above `limits.max_cell_chars` usually means the
+# mapping names the wrong column (a notes column as the site), so the file is refused with the
+# row and column, before fuzzy matching or writing runs over megabytes of text.
+
+
+def _descriptive_columns(mapping: Mapping) -> list[str]:
+    columns = list(mapping.context.values())
+    if mapping.columns is not None:
+        spec = mapping.columns
+        columns += [c for c in (spec.trait, spec.unit, spec.statistic, spec.n) if c]
+    return list(dict.fromkeys(columns))
+
+
+def _refuse_long_names(mapping: Mapping, header: list[str], limits: Limits) -> None:
+    for name in header:
+        if len(name) > limits.max_cell_chars and name not in mapping.ignore:
+            raise SourceReadError(
+                f"header name has {len(name)} characters, more than limits.max_cell_chars "
+                f"({limits.max_cell_chars})",
+                file=str(mapping.path),
+                row=0,
+                column=name[:40] + "…",
+                hint="check the delimiter and the header row, or raise limits.max_cell_chars",
+            )
+
+
+def _refuse_oversized_cells(
+    mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int, limits: Limits
+) -> None:
+    for column in columns:
+        lengths = frame[column].astype(object).fillna("").astype(str).str.len().to_numpy()
+        over = np.flatnonzero(lengths > limits.max_cell_chars)
+        if len(over):
+            raise SourceReadError(
+                f"cell has {int(lengths[over[0]])} characters, more than limits.max_cell_chars "
+                f"({limits.max_cell_chars})",
+                file=str(mapping.path),
+                row=first_row + int(over[0]),
+                column=column,
+                hint="check that the mapping names the right column, or raise "
+                "limits.max_cell_chars in harmonize.yaml",
+            )
+
+
 def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellBatch]:
     """Read the mapping's source batch by batch and yield its trait cells."""
     limits = limits or Limits()
@@ -461,10 +507,13 @@ def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellB
             file=str(mapping.path),
         )
     check_declared_columns(mapping, header)
+    _refuse_long_names(mapping, header, limits)
     _, reader = READERS[mapping.format]
     columns = trait_columns(mapping, header) if mapping.layout == "wide" else []
+    described = _descriptive_columns(mapping)
     first_row = 1
     for frame in reader(mapping, header, limits):
+        _refuse_oversized_cells(mapping, frame, described, first_row, limits)
         if mapping.layout == "wide":
             cells = _wide_cells(mapping, frame, columns, first_row)
         else:
