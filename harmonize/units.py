@@ -148,8 +148,14 @@ _NESTED_GROUP = re.compile(r"\([^()]*\)")
 _STRAY_CHARACTER = re.compile(r"[^\w\s*/().+\-%]")
 
 
+_INVISIBLE = re.compile(r"[\u00ad\u200b-\u200f\u2060-\u2064\ufeff]")
+
+
 def _clean_characters(raw: str) -> str:
-    text = raw.replace("º", "°").replace("˚", "°")  # ordinal and ring signs typed for degree
+    # zero-width spaces, joiners, soft hyphens and stray BOMs come with copied text and
+    # cannot be seen in a spreadsheet, so they are not what the author wrote as the unit
+    text = _INVISIBLE.sub("", raw)
+    text = text.replace("º", "°").replace("˚", "°")  # ordinal and ring signs typed for degree
     text = _SUPERSCRIPT_RUN.sub(lambda m: "^" + m.group(0).translate(_SUPERSCRIPTS), text)
     text = unicodedata.normalize("NFKC", text)  # '℃' -> '°C', micro sign -> Greek mu
     text = text.replace("μ", "u").replace("−", "-").replace("×", " x ")
