@@ -46,6 +46,11 @@ cli.add_command(review_cmd.review)
 cli.add_command(export_cmd.export)
 
 
+def _one_line(error: object) -> str:
+    """Messages quoting a library (pyarrow, pint) may hold line breaks; the CLI promises one line."""
+    return " ".join(str(error).split("\n")).replace("\r", " ")
+
+
 def main(argv: list[str] | None = None) -> None:
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
     try:
@@ -60,7 +65,7 @@ def main(argv: list[str] | None = None) -> None:
     except HarmonizeError as error:
         if debug:
             raise
-        click.echo(f"error: {error}", err=True)
+        click.echo(f"error: {_one_line(error)}", err=True)
         sys.exit(error.exit_code)
     except KeyboardInterrupt:
         click.echo("interrupted; the previous output is untouched", err=True)
@@ -74,13 +79,13 @@ def main(argv: list[str] | None = None) -> None:
         if debug:
             raise
         name = f" {error.filename}" if getattr(error, "filename", None) else ""
-        click.echo(f"error:{name}: {error.strerror or error}", err=True)
+        click.echo(f"error:{name}: {_one_line(error.strerror or error)}", err=True)
         sys.exit(4)
     except Exception as error:  # a bug in harmonize, not bad input: say so, keep the cause visible
         if debug:
             raise
         click.echo(
-            f"internal error (a bug in harmonize, please report it): {type(error).__name__}: {error}; "
+            f"internal error (a bug in harmonize, please report it): {type(error).__name__}: {_one_line(error)}; "
             "rerun with --debug for the traceback",
             err=True,
         )
