@@ -173,6 +173,28 @@ def _encoding_problem(mapping: Mapping, header: list[str]) -> SourceReadError:
     )
 
 
+def _refuse_unclosed_quote(mapping: Mapping, last: pd.DataFrame, last_row: int) -> None:
+    """A quote opened in the last column and never closed swallows every line after it into
+    one cell, and the reader accepts that at the end of the file; refuse it, naming the row."""
+    if last.empty:
+        return
+    cell = last.iloc[-1, -1]
+    if not isinstance(cell, str) or ("\n" not in cell and "\r" not in cell):
+        return
+    with open(mapping.path, "rb") as handle:
+        handle.seek(max(0, mapping.path.stat().st_size - 8))
+        tail = handle.read()
+    if tail.rstrip(b"\r\n").endswith(b'"'):
+        return  # a closed quoted cell that holds line breaks on purpose
+    raise SourceReadError(
+        "a quote opened in this cell is never closed: every later line was read into it",
+        file=str(mapping.path),
+        row=last_row,
+        column=str(last.columns[-1]),
+        hint='add the closing quote (") or remove the stray opening one',
+    )
+
+
 def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
     encoding = _encoding(mapping)
     read_options = pacsv.ReadOptions(
@@ -195,15 +217,18 @@ def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iter
             convert_options=convert_options,
         )
         pending: list[pa.RecordBatch] = []
-        pending_rows = 0
+        pending_rows = done_rows = 0
         for batch in reader:
             pending.append(batch)
             pending_rows += batch.num_rows
             if pending_rows >= limits.batch_rows:
                 yield pa.Table.from_batches(pending).to_pandas()
+                done_rows += pending_rows
                 pending, pending_rows = [], 0
         if pending:
-            yield pa.Table.from_batches(pending).to_pandas()
+            last = pa.Table.from_batches(pending).to_pandas()
+            _refuse_unclosed_quote(mapping, last, done_rows + len(last))
+            yield last
     except pa.ArrowInvalid as error:
         text = str(error)
         if "Expected" in text and "columns" in text:
