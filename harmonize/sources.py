@@ -335,7 +335,12 @@ def read_header(mapping: Mapping) -> list[str]:
         raise ConfigError(
             f"no reader for format '{mapping.format}'", hint=f"known formats: {', '.join(READERS)}"
         ) from None
-    header = header_reader(mapping)
+    # A blank header cell (often a trailing delimiter) gets a name by its position, so its cells
+    # are still accounted for and a mapping can `ignore` it; rejects then name a real column.
+    header = [
+        name if name else f"(unnamed column {position})"
+        for position, name in enumerate(header_reader(mapping), start=1)
+    ]
     seen: set[str] = set()
     for name in header:
         if name in seen:
