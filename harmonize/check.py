@@ -67,15 +67,15 @@ class Hypothesis:
 # Exact factors from NIST SP 811 (2008), Appendix B.8: 1 in = 25.4 mm, 1 lb = 0.45359237 kg,
 # 1 cal (thermochemical) = 4.184 J, 1 h = 3600 s, 1 d = 86400 s; powers of ten are SI prefixes.
 _FACTORS = (
-    (1e3, "1000", "g recorded as kg, mm as m or mL as L (or the reverse)"),
-    (1e6, "10^6", "mg recorded as kg or µm as m (or the reverse)"),
-    (10.0, "10", "mm recorded as cm (or the reverse)"),
-    (100.0, "100", "cm recorded as m, or a percentage as a fraction (or the reverse)"),
-    (25.4, "25.4", "inches recorded as mm (or the reverse)"),
-    (1 / 0.45359237, "2.2046", "pounds recorded as kg (or the reverse)"),
-    (4.184, "4.184", "calories recorded as joules (or the reverse)"),
-    (3600.0, "3600", "per-second values recorded as per hour (or the reverse)"),
-    (86400.0, "86400", "per-second values recorded as per day (or the reverse)"),
+    (1e3, "1000", "g recorded as kg, mm as m or mL as L, or the reverse"),
+    (1e6, "10^6", "mg recorded as kg or µm as m, or the reverse"),
+    (10.0, "10", "mm recorded as cm, or the reverse"),
+    (100.0, "100", "cm recorded as m, or a percentage as a fraction, or the reverse"),
+    (25.4, "25.4", "inches recorded as mm, or the reverse"),
+    (1 / 0.45359237, "2.2046", "pounds recorded as kg, or the reverse"),
+    (4.184, "4.184", "calories recorded as joules, or the reverse"),
+    (3600.0, "3600", "per-second values recorded as per hour, or the reverse"),
+    (86400.0, "86400", "per-second values recorded as per day, or the reverse"),
 )
 LOG_HYPOTHESES = tuple(
     Hypothesis(f"{sign}{label}", cause, "log10", direction * math.log10(factor))
@@ -254,7 +254,8 @@ def _comparisons(levels: pd.DataFrame, settings: CheckSettings) -> pd.DataFrame:
         across = across[~across["group"].isin(compared)]
         across["comparison"] = "across-taxa"
         across["taxa"] = 0
-    return pd.concat([f for f in (within, across) if not f.empty], ignore_index=True)
+    parts = [f for f in (within, across) if not f.empty]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
 
 
 def _shift_findings(
@@ -319,13 +320,14 @@ def _shift_findings(
         confidence = round(float(math.sqrt(fit) * apart * size * comparable), 2)
         if row["comparison"] == "within-taxon":
             reference = (
-                f"{int(row['reference_n'])} values of the same {int(row['taxa'])} taxa "
+                f"{int(row['reference_n'])} values of the same "
+                f"{int(row['taxa'])} {'taxon' if row['taxa'] == 1 else 'taxa'} "
                 f"in other {group_by} groups"
             )
         else:
             reference = f"{int(row['reference_n'])} values in {int(row['reference_groups'])} other {group_by} groups (all taxa)"
         how_far = (
-            f"{10 ** row['shift']:.4g} times" if scale == "log10" else f"{row['shift']:+.3g} K"
+            f"{10 ** row['shift']:.4g} times" if scale == "log10" else f"{row['shift']:+.3g} K from"
         )
         findings.append(
             Finding(
@@ -336,9 +338,10 @@ def _shift_findings(
                 group=str(row.name),
                 values=int(row["n"]),
                 message=(
-                    f"{int(row['n'])} values sit {how_far} the level of {reference}; "
-                    f"that fits {hypothesis.label} ({hypothesis.cause}), residual "
-                    f"{best_residual[position]:+.3f} {scale} within ±{tolerance.iloc[position]:.3f}"
+                    f"{int(row['n'])} values sit at {how_far} the median level of {reference}; "
+                    f"that fits {hypothesis.label}: {hypothesis.cause}; residual "
+                    f"{best_residual[position]:+.3f} {'log10' if scale == 'log10' else 'K'} "
+                    f"within ±{tolerance.iloc[position]:.3f}"
                 ),
                 factor=hypothesis.label,
                 likely_cause=hypothesis.cause,
