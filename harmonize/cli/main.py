@@ -11,7 +11,7 @@ import sys
 import click
 
 from harmonize import __version__
-from harmonize.cli import build_cmd, export_cmd, quick_cmd, review_cmd, vocab_cmd
+from harmonize.cli import build_cmd, check_cmd, export_cmd, quick_cmd, review_cmd, vocab_cmd
 from harmonize.errors import HarmonizeError
 
 EXIT_CODES = {
@@ -44,6 +44,7 @@ cli.add_command(quick_cmd.quick)
 cli.add_command(vocab_cmd.vocab)
 cli.add_command(review_cmd.review)
 cli.add_command(export_cmd.export)
+cli.add_command(check_cmd.check)
 
 
 def _one_line(error: object) -> str:
