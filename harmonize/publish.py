@@ -30,6 +30,7 @@ from __future__ import annotations
 import contextlib
 import ctypes
 import ctypes.util
+import errno
 import json
 import os
 import secrets
@@ -294,7 +295,7 @@ def _exchange(first: Path, second: Path) -> bool:
     if result == 0:
         return True
     error = ctypes.get_errno()
-    if error in (22, 38, 95):  # EINVAL, ENOSYS, EOPNOTSUPP: this system cannot exchange
+    if error in (errno.EINVAL, errno.ENOSYS, errno.EOPNOTSUPP):  # this system cannot exchange
         return False
     raise OSError(error, os.strerror(error), str(first))
 

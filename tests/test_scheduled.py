@@ -78,6 +78,7 @@ def leftovers(root: Path) -> list[str]:
 # ------------------------------------------------------------------ deterministic, incremental
 
 
+@pytest.mark.slow  # reads every source again
 def test_two_fresh_builds_are_byte_identical(built_demo, tmp_path: Path) -> None:
     # the reproducibility promise of the issue: no run-dependent byte in any resource
     root = copy_demo(tmp_path / "other")
@@ -94,6 +95,7 @@ def test_incremental_rebuild_reuses_every_unchanged_source(demo: Path, built_dem
     assert not any(c.any for c in report.changes.values.values())
 
 
+@pytest.mark.slow  # reads every source again
 def test_full_rebuild_reads_everything_and_gives_the_same_bytes(demo: Path, built_demo) -> None:
     report = build_project(load_project(demo), full=True)
     assert report.reused_sources == ()
@@ -108,6 +110,7 @@ def test_a_changed_mapping_invalidates_only_its_source(demo: Path) -> None:
     assert set(report.reused_sources) == set(all_sources(demo)) - {"west-shrews"}
 
 
+@pytest.mark.slow  # reads every source again
 def test_a_changed_vocabulary_invalidates_every_source(demo: Path) -> None:
     vocabulary_file = sorted((demo / "vocab").glob("*.yaml"))[0]
     vocabulary_file.write_text(
@@ -123,6 +126,21 @@ def test_a_damaged_cache_entry_is_read_again_not_fatal(demo: Path, built_demo) -
     report = build_project(load_project(demo))
     assert "north-lizards" not in report.reused_sources
     assert digest(report.output) == built_demo[1]
+
+
+@pytest.mark.slow  # reads every source again
+def test_parquet_packages_rebuild_identically_and_compare_cleanly(demo: Path) -> None:
+    project_file = demo / "harmonize.yaml"
+    text = project_file.read_text(encoding="utf-8")
+    assert text.count("format: csv") == 1
+    project_file.write_text(text.replace("format: csv", "format: parquet"), encoding="utf-8")
+    first = build_project(load_project(demo))
+    first_digest = digest(first.output)
+    assert any(name.endswith(".parquet") for name in first_digest)
+    again = build_project(load_project(demo))
+    assert digest(again.output) == first_digest
+    assert not any(c.any for c in again.changes.values.values())
+    assert again.changes.values["individual_values"].unchanged == again.individual_values
 
 
 # ------------------------------------------------------------------ one changed cell
