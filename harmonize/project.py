@@ -260,6 +260,8 @@ def resolve_inside(root: Path, base: Path, text: str, file: Path, where: str) ->
 # larger than these bounds is refused before its values are used.
 YAML_MAX_BYTES = 1 << 20
 YAML_MAX_EXPANDED_NODES = 1_000_000
+# libyaml's safe loader reads the vocabulary about 7x faster and caps nesting depth itself
+_SAFE_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 
 def _expanded_size(root: yaml.Node) -> int:
@@ -303,7 +305,7 @@ def parse_yaml(text: str) -> tuple[yaml.Node | None, Any]:
     Returns the composed node (for line numbers) and the data. Raises `yaml.YAMLError`, whose
     `problem` and `problem_mark` name the cause and the line, like any syntax error.
     """
-    loader = yaml.SafeLoader(text)
+    loader = _SAFE_LOADER(text)
     try:
         node = loader.get_single_node()
         if node is None:
