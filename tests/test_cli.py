@@ -37,6 +37,8 @@ def test_build_prints_the_summary_and_says_names_need_review(demo: Path, capsys)
     assert "names needing review" in out
     assert "balanced" in out and "NO" not in out.split("accounting")[0].split()[-1]
     assert "frictionless validation: valid" in out
+    sd_line = next(line for line in out.splitlines() if "SDs:" in line)
+    assert "given" in sd_line and "estimated (flagged)" in sd_line
     assert "reading north-lizards" in err  # progress on stderr
     assert (demo / "out" / "demo-package" / "datapackage.json").is_file()
 

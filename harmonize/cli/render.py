@@ -22,6 +22,22 @@ def _table(header: list[str], rows: list[list[str]]) -> list[str]:
     return out
 
 
+def _sd_origins(report: BuildReport) -> str:
+    """How the SDs of the population summaries were obtained: given, derived exactly, estimated."""
+    summaries = (report.tables or {}).get("population_summaries")
+    if summaries is None or summaries.empty:
+        return ""
+    method = summaries["sd_method"].astype("string")
+    given = int((method == "given").sum())
+    estimated = int(method.str.contains("(estimate)", regex=False).fillna(False).sum())
+    derived = int(method.notna().sum()) - given - estimated
+    missing = int(method.isna().sum())
+    return (
+        f"  SDs: {given} given, {derived} derived exactly (from SE, CI, variance, CV, pooling or "
+        f"individuals), {estimated} estimated (flagged), {missing} without SD"
+    )
+
+
 def summary_lines(report: BuildReport) -> list[str]:
     lines = [f"package: {report.output}", ""]
     rows = [
@@ -42,6 +58,9 @@ def summary_lines(report: BuildReport) -> list[str]:
         f"individual values:    {report.individual_values}",
         f"population summaries: {report.population_summaries}",
     ]
+    sd_line = _sd_origins(report)
+    if sd_line:
+        lines.append(sd_line)
     if report.rejects_by_reason:
         lines += [
             "",
