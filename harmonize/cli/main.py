@@ -60,8 +60,10 @@ def main(argv: list[str] | None = None) -> None:
     except click.exceptions.Abort:
         click.echo("aborted", err=True)
         sys.exit(130)
-    except click.ClickException as error:
-        error.show()
+    except click.ClickException as error:  # usage errors: one line too, with where to look
+        context = getattr(error, "ctx", None)
+        hint = f" (see '{context.command_path} --help')" if context is not None else ""
+        click.echo(f"error: {_one_line(error.format_message())}{hint}", err=True)
         sys.exit(2)
     except HarmonizeError as error:
         if debug:
