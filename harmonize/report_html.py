@@ -107,7 +107,10 @@ def trait_plot(result: CheckResult, trait: str) -> tuple[str, int]:
         axes.set_xscale("log")
         plain = FuncFormatter(lambda value, _: f"{value:g}")  # '20' reads better than '2×10¹'
         axes.xaxis.set_major_formatter(plain)
-        axes.xaxis.set_minor_formatter(NullFormatter())
+        low, high = axes.get_xlim()
+        # less than a decade shown: no major tick falls inside, so label the minor ticks instead
+        narrow = high / low < 10 if low > 0 else False
+        axes.xaxis.set_minor_formatter(plain if narrow else NullFormatter())
     axes.set_xlabel(f"{trait} ({'°C' if celsius else info.unit}{'' if celsius else ', log scale'})")
     axes.grid(axis="x", color="#dde", linewidth=0.6)
     axes.set_axisbelow(True)
