@@ -17,25 +17,28 @@ HEADER = (
 )
 
 
-def _commands(group: click.Group, prefix: list[str]) -> list[tuple[list[str], click.Command]]:
-    found: list[tuple[list[str], click.Command]] = [(prefix, group)]
-    for name in sorted(group.commands):
-        command = group.commands[name]
+def _help_texts(
+    command: click.Command, name: str, parent: click.Context | None
+) -> list[tuple[str, str]]:
+    """(full command name, help text) for a command and every subcommand, depth first.
+
+    Contexts are made as a real invocation makes them (a child inherits its parent's settings,
+    such as -h as a help option), so the text equals what `--help` prints.
+    """
+    context = command.make_context(name, [], parent=parent, resilient_parsing=True)
+    context.terminal_width = context.max_content_width = 100
+    with context:
+        found = [(context.command_path, command.get_help(context))]
         if isinstance(command, click.Group):
-            found += _commands(command, [*prefix, name])
-        else:
-            found.append(([*prefix, name], command))
+            for sub in sorted(command.commands):
+                found += _help_texts(command.commands[sub], sub, context)
     return found
 
 
 def render_reference() -> str:
     parts = [HEADER]
-    for path, command in _commands(cli, ["harmonize"]):
-        with click.Context(
-            command, info_name=" ".join(path), terminal_width=100, max_content_width=100
-        ) as context:
-            text = command.get_help(context)
-        parts.append(f"\n## `{' '.join(path)}`\n\n```text\n{text}\n```\n")
+    for path, text in _help_texts(cli, "harmonize", None):
+        parts.append(f"\n## `{path}`\n\n```text\n{text}\n```\n")
     return "".join(parts)
 
 
