@@ -180,7 +180,9 @@ def _normalise(raw: str) -> tuple[str, tuple[str, ...]]:
     qualifiers: list[str] = []
 
     def keep_qualifier(match: re.Match[str]) -> str:
-        qualifiers.append(next(g for g in match.groups() if g))
+        found = next((g for g in match.groups() if g), None)
+        if found:  # an empty annotation '{}' qualifies nothing
+            qualifiers.append(found)
         return " "
 
     text = _ANNOTATION.sub(keep_qualifier, text)
