@@ -73,10 +73,43 @@ class BatchResult:
 
 
 def _join_flags(*parts: np.ndarray) -> np.ndarray:
-    """Join per-row flag arrays (object arrays of str or '') with ';', skipping blanks."""
-    frame = pd.DataFrame({i: pd.Series(p, dtype=object).fillna("") for i, p in enumerate(parts)})
-    joined = frame.agg(";".join, axis=1) if len(frame) else pd.Series([], dtype=object)
-    return joined.str.replace(r";{2,}", ";", regex=True).str.strip(";").to_numpy(dtype=object)
+    """Join per-row flag arrays (object arrays of str, '' or None) with ';', skipping blanks.
+
+    Each part has few distinct texts, so rows are coded by their combination of texts and the
+    joined string is built once per distinct combination, not once per row.
+    """
+    count = len(parts[0]) if parts else 0
+    combined = np.zeros(count, dtype=np.int64)
+    texts: list[np.ndarray] = []
+    codes_per_part: list[np.ndarray] = []
+    for part in parts:
+        codes, uniques = pd.factorize(pd.Series(part, dtype=object).fillna(""))
+        texts.append(np.asarray(uniques, dtype=object))
+        codes_per_part.append(codes)
+        # re-factorise after each part so the combined code stays small
+        combined, _ = pd.factorize(combined * max(len(uniques), 1) + codes)
+    _, first, inverse = np.unique(combined, return_index=True, return_inverse=True)
+    joined = np.array(
+        [
+            ";".join(
+                t
+                for t in (
+                    text[codes[row]] for text, codes in zip(texts, codes_per_part, strict=True)
+                )
+                if t
+            )
+            for row in first
+        ],
+        dtype=object,
+    )
+    return joined[inverse.reshape(-1)] if count else np.array([], dtype=object)
+
+
+def _labelled(prefix: str, values: np.ndarray) -> np.ndarray:
+    """`prefix` + value where a value is given, '' elsewhere; built once per distinct value."""
+    codes, uniques = pd.factorize(pd.Series(values, dtype=object))
+    labels = np.array([f"{prefix}{u}" if u != "" else "" for u in uniques] + [""], dtype=object)
+    return labels[codes]  # code -1 (missing) takes the trailing ''
 
 
 def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.DataFrame:
@@ -95,9 +128,13 @@ def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.
 
 
 def normalise_statistic(raw: pd.Series) -> pd.Series:
-    key = raw.astype(object).where(raw.notna(), None)
-    lowered = pd.Series(key, dtype=object).str.strip().str.lower()
-    return lowered.map(STATISTIC_ALIASES)
+    # worked out per distinct spelling, taken per cell by integer codes
+    codes, uniques = pd.factorize(pd.Series(raw, dtype=object), use_na_sentinel=True)
+    known = [
+        STATISTIC_ALIASES.get(v.strip().lower()) if isinstance(v, str) else None
+        for v in np.asarray(uniques, dtype=object)
+    ]
+    return pd.Series(np.array([*known, None], dtype=object)[codes], index=raw.index, dtype=object)
 
 
 class _Fate:
@@ -165,7 +202,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     }
     trait_id = per_name["trait_id"]
     fate.reject(per_name["status"] == "rejected", RejectReason.NAME_REJECTED, per_name["message"])
-    unmatched = pd.isna(pd.Series(trait_id)).to_numpy()
+    unmatched = pd.isna(trait_id)
     fate.reject(unmatched, RejectReason.UNMATCHED_NAME, per_name["message"])
 
     # per-trait facts, taken per cell by integer codes
@@ -204,7 +241,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     unknown_stat = (
         declared.notna().to_numpy()
         & (declared.astype(str).str.strip() != "").to_numpy()
-        & pd.isna(pd.Series(statistic)).to_numpy()
+        & pd.isna(statistic)
     )
     declared_text = declared.to_numpy(dtype=object)
     fate.reject(
@@ -215,10 +252,10 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             for s in declared_text[at]
         ],
     )
-    statistic = np.where(pd.isna(pd.Series(statistic)).to_numpy(), hints, statistic)
+    statistic = np.where(pd.isna(statistic), hints, statistic)
     stat_flags = np.full(count, "", dtype=object)
     if mapping.level == "individual":
-        not_value = ~pd.isna(pd.Series(statistic)).to_numpy() & (statistic != "value")
+        not_value = ~pd.isna(statistic) & (statistic != "value")
         fate.reject(
             not_value,
             RejectReason.UNKNOWN_STATISTIC,
@@ -229,7 +266,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         )
         statistic = np.full(count, "value", dtype=object)
     else:
-        assumed = pd.isna(pd.Series(statistic)).to_numpy()
+        assumed = pd.isna(statistic)
         statistic = np.where(assumed, "mean", statistic)
         stat_flags = np.where(
             assumed & ~np.isin(kind, ["category", "text"]), "statistic-assumed-mean", ""
@@ -260,7 +297,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
 
     # 7. numbers: reasons from parsing (ranges are never a single value)
     numeric = ~is_category
-    parse_failed = numeric & pd.notna(pd.Series(parsed.reason)).to_numpy()
+    parse_failed = numeric & pd.notna(parsed.reason)
     fate.reject(parse_failed, parsed.reason, parsed.message)
 
     # 8. units: effective unit text and where it came from
@@ -276,7 +313,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         np.where(
             pd.notna(cell_unit),
             "cell",
-            np.where(pd.notna(pd.Series(hint_unit)).to_numpy(), "name-hint", "none"),
+            np.where(pd.notna(hint_unit), "name-hint", "none"),
         ),
     )
     unit_flags = np.where(
@@ -291,16 +328,23 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # a coefficient of variation is unit-free: its unit can only be %, a fraction or none
     unit_target = np.where(statistic == "cv", "dimensionless", canonical)
     if needs_unit.any():
-        keys = pd.DataFrame(
-            {
-                "unit": pd.Series(unit_text, dtype=object).fillna("\0"),
-                "canon": pd.Series(unit_target, dtype=object).fillna("\0"),
-            }
+        # one conversion per distinct (unit text, canonical unit) pair, by combined codes
+        index = np.flatnonzero(needs_unit)
+        unit_codes, unit_uniques = pd.factorize(
+            pd.Series(unit_text[index], dtype=object).fillna("\0")
         )
-        codes, uniques = pd.factorize(pd.MultiIndex.from_frame(keys[needs_unit]))
+        canon_codes, canon_uniques = pd.factorize(
+            pd.Series(unit_target[index], dtype=object).fillna("\0")
+        )
+        pair = unit_codes.astype(np.int64) * len(canon_uniques) + canon_codes
+        pair_codes, pair_uniques = pd.factorize(pair)
+        codes = pair_codes
+        uniques = [
+            (unit_uniques[p // len(canon_uniques)], canon_uniques[p % len(canon_uniques)])
+            for p in pair_uniques
+        ]
         reason = np.full(count, None, dtype=object)
         message = np.full(count, None, dtype=object)
-        index = np.flatnonzero(needs_unit)
         for code, (raw, canon) in enumerate(uniques):
             conv = units.conversion(
                 None if raw == "\0" else raw, canon if canon != "\0" else "dimensionless"
@@ -314,7 +358,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             offset[rows] = conv.offset
             if conv.flags:
                 conversion_flags[rows] = ";".join(conv.flags)
-        fate.reject(pd.notna(pd.Series(reason)).to_numpy(), reason, message)
+        fate.reject(pd.notna(reason), reason, message)
 
     # 9. converted numbers: locations affine, SD/SE by |scale|, variance by scale**2 (never an
     # offset: a spread of temperatures has none), CV by its own unit only, n as is
@@ -340,14 +384,14 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     if plan.correction is not None and plan.mapping.temperature is None:
         uncorrected = is_rate
     elif plan.correction is not None and is_rate.any():
-        bad = is_rate & pd.notna(pd.Series(temperature_reason)).to_numpy()
+        bad = is_rate & pd.notna(temperature_reason)
         fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_reason)
         for trait in pd.unique(trait_id[is_rate]):
             here = is_rate & (trait_id == trait)
             correction = _correction_for(plan, terms.get(trait))
             corrected, reasons = correct_rates(converted[here], temperature[here], correction)
             bad = np.zeros(count, dtype=bool)
-            bad[here] = pd.notna(pd.Series(reasons)).to_numpy()
+            bad[here] = pd.notna(reasons)
             fate.reject(bad, RejectReason.BAD_TEMPERATURE, temperature_problems(temperature))
             as_measured[here] = converted[here]
             factor = correction.factor(temperature[here])
@@ -367,11 +411,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     qualifier = np.asarray(parsed.qualifier, dtype=object)
     flags = _join_flags(
         np.where(outside, "outside-plausible-range", ""),
-        np.where(
-            (qualifier != "") & pd.notna(pd.Series(qualifier)).to_numpy(),
-            np.char.add("qualifier:", qualifier.astype(str)),
-            "",
-        ),
+        _labelled("qualifier:", qualifier),
         conversion_flags,
         unit_flags,
         np.where(unit_origin == "name-hint", "unit-from-name", ""),
@@ -384,9 +424,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     taxa = clean_taxon_names(cells["taxon_verbatim"], plan.taxon_synonyms)
     match_method = per_name["method"]
     match_score = per_name["score"].astype(float)
-    role = np.where(
-        pd.notna(pd.Series(per_name["role"])).to_numpy(), per_name["role"], per_trait["role"]
-    )
+    role = np.where(pd.notna(per_name["role"]), per_name["role"], per_trait["role"])
     out = pd.DataFrame(
         {
             "source_row": cells["source_row"].to_numpy(),
@@ -437,9 +475,10 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
 
 
 def _blank_to_none(series: pd.Series) -> np.ndarray:
-    text = series.astype(object)
-    stripped = text.where(text.isna(), text.astype(str).str.strip())
-    return stripped.where(stripped.notna() & (stripped != ""), None).to_numpy(dtype=object)
+    """Stripped text, None where blank; worked out once per distinct text."""
+    codes, uniques = pd.factorize(pd.Series(series, dtype=object), use_na_sentinel=True)
+    texts = [str(v).strip() for v in np.asarray(uniques, dtype=object)]
+    return np.array([t if t else None for t in texts] + [None], dtype=object)[codes]
 
 
 def _unmatched_message(name: str, match: NameMatch | None) -> str:

@@ -407,6 +407,22 @@ def check_declared_columns(mapping: Mapping, header: list[str]) -> None:
 # ---------------------------------------------------------------- reshaping
 
 
+def _clean_text(values: pd.Series, missing: set[str] | None = None) -> np.ndarray:
+    """Stripped text as an object array, None where blank or a missing-value token.
+
+    Worked out once per distinct cell text (a site or species column repeats a few names
+    millions of times), then taken per cell by integer codes.
+    """
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    texts = pd.Series(np.asarray(uniques, dtype=object), dtype=object)
+    stripped = texts.map(lambda v: v.strip() if isinstance(v, str) else v)
+    blank = stripped.isna() | (stripped == "")
+    if missing:
+        blank |= stripped.isin(missing)
+    cleaned = np.append(np.where(blank.to_numpy(), None, stripped.to_numpy(dtype=object)), None)
+    return cleaned[codes]  # code -1 (a missing cell) takes the trailing None
+
+
 def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarray]:
     out: dict[str, np.ndarray] = {}
     missing = set(mapping.read.missing)
@@ -415,12 +431,9 @@ def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarr
         if column is None:
             out[target] = np.full(len(frame), None, dtype=object)
             continue
-        values = frame[column].astype(object).to_numpy()
-        stripped = pd.Series(values, dtype=object).str.strip()
-        blank = stripped.isin(missing) | stripped.isna() | (stripped == "")
-        out[target] = np.where(blank.to_numpy(), None, stripped.to_numpy())
+        out[target] = _clean_text(frame[column], missing)
     if mapping.temperature and mapping.temperature.column:
-        out["temperature_raw"] = frame[mapping.temperature.column].astype(object).to_numpy()
+        out["temperature_raw"] = frame[mapping.temperature.column].to_numpy(dtype=object)
     else:
         out["temperature_raw"] = np.full(len(frame), None, dtype=object)
     return out
@@ -451,6 +464,13 @@ def _wide_cells(
     return pd.concat(pieces, ignore_index=True)[list(CELL_COLUMNS)]
 
 
+def _stripped(values: pd.Series) -> np.ndarray:
+    """Stripped text (missing cells stay missing), once per distinct text."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    texts = [v.strip() if isinstance(v, str) else v for v in np.asarray(uniques, dtype=object)]
+    return np.array([*texts, None], dtype=object)[codes]
+
+
 def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.DataFrame:
     spec = mapping.columns
     assert spec is not None  # checked when the mapping was loaded
@@ -460,7 +480,7 @@ def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.Dat
         {
             "source_row": np.arange(first_row, first_row + len(frame), dtype=np.int64),
             "column": np.full(len(frame), spec.value, dtype=object),
-            "original_name": frame[spec.trait].astype(object).str.strip().to_numpy(),
+            "original_name": _stripped(frame[spec.trait]),
             "raw_value": frame[spec.value].astype(object).to_numpy(),
             "raw_unit": frame[spec.unit].astype(object).to_numpy() if spec.unit else none,
             "statistic": frame[spec.statistic].astype(object).to_numpy()
@@ -506,7 +526,10 @@ def _refuse_oversized_cells(
     mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int, limits: Limits
 ) -> None:
     for column in columns:
-        lengths = frame[column].astype(object).fillna("").astype(str).str.len().to_numpy()
+        # lengths of the distinct texts only: context columns repeat a few names many times
+        codes, uniques = pd.factorize(frame[column], use_na_sentinel=True)
+        distinct = np.array([len(str(v)) for v in np.asarray(uniques, dtype=object)] + [0])
+        lengths = distinct[codes]
         over = np.flatnonzero(lengths > limits.max_cell_chars)
         if len(over):
             raise SourceReadError(
