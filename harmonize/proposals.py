@@ -10,18 +10,7 @@ import pandas as pd
 
 from harmonize.build import build_tables
 from harmonize.project import Project
-
-SHEET_COLUMNS = [
-    "source",
-    "name",
-    "example_values",
-    "proposed_trait",
-    "score",
-    "runner_up",
-    "runner_up_score",
-    "decision",
-    "note",
-]
+from harmonize.review import SHEET_COLUMNS
 
 
 def names_for_review(
@@ -70,6 +59,6 @@ def names_for_review(
             "decision": "",
             "note": rows["note"],
         },
-        columns=SHEET_COLUMNS,
+        columns=list(SHEET_COLUMNS),
     )
     return sheet.sort_values(["source", "name"]).reset_index(drop=True)

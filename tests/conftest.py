@@ -1,8 +1,29 @@
-"""Shared test hook: the size of the bad-input catalogue in the test summary."""
+"""Shared test fixtures and hooks: an independent UCUM reader; the bad-input catalogue count."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pytest
+
+
+@pytest.fixture(scope="session")
+def ucumvert_reader():
+    """ucumvert on its own pint registry (ECOSYSTEM-NOTES §3 'Fix I tested'), so a check never
+    shares state with the registry under test. Returns (registry, code -> pint quantity)."""
+    ucumvert = pytest.importorskip("ucumvert")
+    import pint
+
+    reference = pint.UnitRegistry()
+    reference.load_definitions(str(Path(ucumvert.__file__).parent / "pint_ucum_defs.txt"))
+    transformer = ucumvert.UcumToPintTransformer(ureg=reference)
+    parser = ucumvert.get_ucum_parser()
+
+    def read(code: str):
+        return transformer.transform(ucumvert.parse_ucum(code, parser))
+
+    return reference, read
+
 
 BAD_INPUT_TEST = "test_bad_inputs.py::test_bad_input["
 

@@ -3,8 +3,6 @@ specification (unitsofmeasure.org) by parsing them back with ucumvert, an indepe
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
 
 from harmonize.errors import ConfigError
@@ -64,21 +62,8 @@ ROUND_TRIP_UNITS = [
 
 
 @pytest.fixture(scope="module")
-def ucum_reference():
-    """ucumvert on its own pint registry (ECOSYSTEM-NOTES §3 'Fix I tested'), so the check
-    never shares state with the registry under test."""
-    ucumvert = pytest.importorskip("ucumvert")
-    import pint
-
-    reference = pint.UnitRegistry()
-    reference.load_definitions(str(Path(ucumvert.__file__).parent / "pint_ucum_defs.txt"))
-    transformer = ucumvert.UcumToPintTransformer(ureg=reference)
-    parser = ucumvert.get_ucum_parser()
-
-    def read(code: str):
-        return transformer.transform(ucumvert.parse_ucum(code, parser))
-
-    return reference, read
+def ucum_reference(ucumvert_reader):
+    return ucumvert_reader
 
 
 @pytest.mark.parametrize("unit_text", ROUND_TRIP_UNITS)

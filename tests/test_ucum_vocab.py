@@ -23,21 +23,15 @@ _ANNOTATION = re.compile(r"\{[^{}]*\}")
 
 
 @pytest.fixture(scope="module")
-def read_ucum():
-    ucumvert = pytest.importorskip("ucumvert")
-    import pint
-
-    reference = pint.UnitRegistry()
-    reference.load_definitions(str(Path(ucumvert.__file__).parent / "pint_ucum_defs.txt"))
-    transformer = ucumvert.UcumToPintTransformer(ureg=reference)
-    parser = ucumvert.get_ucum_parser()
+def read_ucum(ucumvert_reader):
+    reference, parse = ucumvert_reader
 
     def read(code: str):
         # ucumvert fails on a factor that is only an annotation ('{count}', ECOSYSTEM-NOTES §3),
         # so annotations are stripped and a factor left empty is dropped.
         factors = [_ANNOTATION.sub("", factor) for factor in code.split(".")]
         plain = ".".join(f for f in factors if f) or "1"
-        return reference, transformer.transform(ucumvert.parse_ucum(plain, parser))
+        return reference, parse(plain)
 
     return read
 
