@@ -244,6 +244,21 @@ def parse_numbers(
     unit_in_cell[rows], empty[rows] = detailed.unit_in_cell, detailed.empty
     reason[rows], message[rows] = detailed.reason, detailed.message
 
+    # A non-zero number too small for a double (e.g. '1e-400') reads as 0.0: never let that pass
+    # silently (IEEE 754 underflow; the smallest positive double is about 4.9e-324).
+    zero_rows = np.flatnonzero((value == 0) & pd.isna(reason))
+    if len(zero_rows):
+        nonzero = pc.match_substring_regex(
+            shown.take(pa.array(zero_rows)), r"^[^eE]*[1-9][^eE]*[eE]"
+        )
+        under = zero_rows[pc.fill_null(nonzero, False).to_numpy(zero_copy_only=False)]
+        value[under] = np.nan
+        reason[under] = RejectReason.NON_FINITE
+        texts = shown.take(pa.array(under)).to_pylist() if len(under) else []
+        message[under] = [
+            f"'{t}' is too small to represent as a number (it would read as 0)" for t in texts
+        ]
+
     large_rows = np.flatnonzero(too_large)
     reason[large_rows] = RejectReason.CELL_TOO_LARGE
     if len(large_rows):

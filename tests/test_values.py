@@ -283,3 +283,12 @@ def test_number_like_text_gets_exactly_one_outcome(cells, decimal):
     # A value never appears where the text has no digit at all.
     digitless = np.array([not any(c.isdigit() for c in cell) for cell in cells])
     assert not (has_value & digitless).any()
+
+
+def test_underflow_is_not_silently_zero():
+    # IEEE 754 binary64: the smallest positive subnormal is about 4.9e-324, so 1e-400 underflows
+    parsed = parse_numbers(["1e-400", "0e5", "0", "2.5E-500"])
+    assert parsed.reason[0] == RejectReason.NON_FINITE and np.isnan(parsed.value[0])
+    assert parsed.value[1] == 0 and parsed.reason[1] is None  # a real zero stays zero
+    assert parsed.value[2] == 0 and parsed.reason[2] is None
+    assert parsed.reason[3] == RejectReason.NON_FINITE
