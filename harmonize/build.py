@@ -14,7 +14,6 @@ from __future__ import annotations
 import json
 import shutil
 from collections import Counter
-from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -22,36 +21,30 @@ from pathlib import Path
 import pandas as pd
 
 from harmonize import __version__, publish, sources, tables
-from harmonize.assemble import SourcePlan, assemble_batch
+from harmonize.arrow_validate import accounting_problems, check_package_arrow
 from harmonize.changes import ChangeReport, compare_packages, report_text
-from harmonize.errors import BuildError, ConfigError, SourceNotFoundError
+from harmonize.errors import BuildError, SourceNotFoundError
 from harmonize.incremental import SourceCache, default_cache_folder, source_key
-from harmonize.match import MatchSettings, NameMatch, match_names, normalise_name
-from harmonize.package import PackageInfo, write_package
+from harmonize.ingest import (
+    Progress,
+    SourceAccount,
+    ValueSink,
+    build_settings,
+    check_declared_traits,
+    read_source,
+)
+from harmonize.package import PackageInfo, ResourceWriter, write_package
 from harmonize.package_validate import ValidationResult, validate_package
-from harmonize.project import Limits, Mapping, Project
-from harmonize.review import read_decisions
-from harmonize.summaries import aggregate_individuals, record_ids, summarise_population_cells
-from harmonize.taxa import load_taxon_synonyms
-from harmonize.temperature import TemperatureCorrection
-from harmonize.vocab import Vocabulary, load_vocabulary
+from harmonize.project import Mapping, Project
+from harmonize.vocab import Vocabulary
 
-Progress = Callable[[str, dict], None]
+__all__ = ["BuildReport", "SourceAccount", "build_project", "build_tables", "changes_file_paths"]
 
-
-@dataclass(frozen=True)
-class SourceAccount:
-    source_id: str
-    rows_read: int
-    cells: int
-    values_written: int
-    cells_rejected: int
-    cells_empty: int
-    reused: bool = False  # taken from the cache of the previous build, not read again
-
-    @property
-    def balanced(self) -> bool:
-        return self.cells == self.values_written + self.cells_rejected + self.cells_empty
+# A package with at most this many individual values is "small": its values stay in memory
+# for the report and the cache, frictionless validates it row by row and the change report
+# compares it with the previous build. Larger packages are streamed to disk and checked
+# column-wise with pyarrow only (frictionless reads about 35-60k rows/s: ECOSYSTEM-NOTES §6).
+SMALL_PACKAGE_ROWS = 200_000
 
 
 @dataclass(frozen=True)
@@ -64,11 +57,15 @@ class BuildReport:
     accounts: tuple[SourceAccount, ...]
     validation: ValidationResult
     vocabulary_version: str
+    # the package's tables; `individual_values` is in memory only for small packages
+    # (SMALL_PACKAGE_ROWS), otherwise it is empty here and read from the written package
     tables: dict[str, pd.DataFrame] = field(repr=False, default_factory=dict)
     changes: ChangeReport | None = None
     changes_files: tuple[Path, ...] = ()  # the JSON and text change reports beside the output
     lock_taken_over: str | None = None  # who held the stale lock this build replaced
     leftovers_removed: tuple[str, ...] = ()  # staging folders etc. of killed runs
+    frictionless_checked: bool = True  # frictionless validated it row by row (small packages)
+    changes_skipped: bool = False  # too large for the change report (see SMALL_PACKAGE_ROWS)
 
     @property
     def balanced(self) -> bool:
@@ -77,216 +74,6 @@ class BuildReport:
     @property
     def reused_sources(self) -> tuple[str, ...]:
         return tuple(a.source_id for a in self.accounts if a.reused)
-
-
-def _settings(project: Project) -> MatchSettings:
-    return MatchSettings(**project.matching) if project.matching else MatchSettings()
-
-
-def _check_declared_traits(mapping: Mapping, vocabulary: Vocabulary) -> None:
-    for trait_column in mapping.traits:
-        if trait_column.trait is not None and trait_column.trait not in vocabulary.terms:
-            try:
-                vocabulary.get(trait_column.trait)
-            except KeyError as error:
-                hint = str(error).strip("'\"")
-            else:  # pragma: no cover - get() found it after all
-                hint = None
-            raise ConfigError(
-                f"trait '{trait_column.trait}' is not in the vocabulary",
-                file=str(mapping.mapping_file),
-                column=trait_column.column,
-                hint=hint,
-            )
-
-
-def _declared_match(
-    name: str, trait: str, statistic_hint: str | None, unit_hint: str | None
-) -> NameMatch:
-    return NameMatch(
-        name=name,
-        normalised=name,
-        trait_id=trait,
-        method="declared",
-        score=100.0,
-        status="accepted",
-        runner_up=None,
-        runner_up_score=None,
-        unit_hint=unit_hint,
-        statistic_hint=statistic_hint,
-        note="declared in the mapping",
-    )
-
-
-class _SourceRun:
-    """Everything gathered while one source is read."""
-
-    def __init__(
-        self,
-        mapping: Mapping,
-        plan: SourcePlan,
-        settings: MatchSettings,
-        decisions: dict,
-        limits: Limits,
-    ) -> None:
-        self.mapping = mapping
-        self.limits = limits
-        self.plan = plan
-        self.settings = settings
-        self.decisions = decisions
-        self.rows = 0
-        self.cells = 0
-        self.empty = 0
-        self.individual: list[pd.DataFrame] = []
-        self.statistic_cells: list[pd.DataFrame] = []
-        self.rejects: list[pd.DataFrame] = []
-        self.name_cells: Counter[str] = Counter()
-
-    def learn_names(self, names: list[str]) -> None:
-        new = [n for n in names if n not in self.plan.names]
-        if not new:
-            return
-        declared = {tc.column: tc for tc in self.mapping.traits}
-        to_match = []
-        for name in new:
-            spec = declared.get(name) if self.mapping.layout == "wide" else None
-            if spec is not None and spec.trait:
-                hints = normalise_name(name)
-                self.plan.names[name] = _declared_match(
-                    name, spec.trait, hints.statistic_hint, hints.unit_hint
-                )
-            else:
-                to_match.append(name)
-            if spec is not None and spec.role:
-                self.plan.roles[name] = spec.role
-        if to_match:
-            self.plan.names.update(
-                match_names(to_match, self.plan.vocabulary, self.settings, self.decisions)
-            )
-
-
-def _read_source(run: _SourceRun, progress: Progress | None) -> None:
-    mapping = run.mapping
-    for batch in sources.iter_cells(mapping, run.limits):
-        cells = batch.cells
-        names = cells["original_name"].astype(object).fillna("")
-        run.learn_names(list(pd.unique(names)))
-        run.name_cells.update(names.value_counts().to_dict())
-        result = assemble_batch(cells, run.plan)
-        run.rows += batch.rows
-        run.cells += len(cells)
-        run.empty += result.empty
-        if not result.individual.empty:
-            run.individual.append(result.individual)
-        if not result.statistic_cells.empty:
-            run.statistic_cells.append(result.statistic_cells)
-        if not result.rejects.empty:
-            run.rejects.append(result.rejects)
-        if progress:
-            progress("batch", {"source": mapping.source, "rows": run.rows})
-
-
-def _individual_rows(run: _SourceRun) -> pd.DataFrame:
-    if not run.individual:
-        return pd.DataFrame()
-    frame = pd.concat(run.individual, ignore_index=True)
-    frame["source_id"] = run.mapping.source
-    frame["record_id"] = record_ids(frame, run.mapping.source)
-    return frame.drop(columns=["column"])
-
-
-@dataclass(frozen=True)
-class _BuildSettings:
-    """Project-wide inputs every source is read with."""
-
-    vocabulary: Vocabulary
-    matching: MatchSettings
-    taxon_synonyms: dict[str, str] | None
-    correction: TemperatureCorrection | None
-
-
-def _build_settings(project: Project) -> _BuildSettings:
-    correction = None
-    if project.temperature_correction is not None:
-        spec = project.temperature_correction
-        correction = TemperatureCorrection(
-            method=spec.method,
-            reference_celsius=spec.reference_celsius,
-            activation_energy_ev=spec.activation_energy_ev,
-            q10=spec.q10,
-        )
-    return _BuildSettings(
-        vocabulary=load_vocabulary(project.vocabulary),
-        matching=_settings(project),
-        taxon_synonyms=(
-            load_taxon_synonyms(project.taxon_synonyms) if project.taxon_synonyms else None
-        ),
-        correction=correction,
-    )
-
-
-# The frames one source contributes; they are what the cache stores per source.
-_SOURCE_FRAMES = ("individual_values", "population_summaries", "rejects", "name_matches")
-
-
-def _read_one_source(
-    project: Project, mapping: Mapping, settings: _BuildSettings, progress: Progress | None
-) -> tuple[dict[str, pd.DataFrame], SourceAccount]:
-    """Read one source file and turn it into its frames and its cell account."""
-    decisions = read_decisions(mapping.decisions_file, settings.vocabulary)
-    plan = SourcePlan(
-        mapping=mapping,
-        vocabulary=settings.vocabulary,
-        names={},
-        correction=settings.correction,
-        max_cell_chars=project.limits.max_cell_chars,
-        taxon_synonyms=settings.taxon_synonyms,
-    )
-    run = _SourceRun(mapping, plan, settings.matching, decisions, project.limits)
-    _read_source(run, progress)
-
-    values_frame = _individual_rows(run)
-    written = len(values_frame)
-    source_rejects = list(run.rejects)
-    population = pd.DataFrame()
-    if run.statistic_cells:
-        summary = summarise_population_cells(
-            pd.concat(run.statistic_cells, ignore_index=True), mapping
-        )
-        population = summary.summaries
-        written += summary.cells_written
-        if not summary.rejects.empty:
-            source_rejects.append(summary.rejects)
-    if project.aggregate_individuals is not None and not values_frame.empty:
-        # summaries computed from this source's individuals: derived rows, not cells read, so
-        # they do not enter the cell account
-        computed = aggregate_individuals(
-            values_frame, project.aggregate_individuals, mapping.source
-        )
-        if not computed.empty:
-            population = pd.concat(
-                [f for f in (population, computed) if not f.empty], ignore_index=True
-            )
-    rejected_frame = (
-        pd.concat(source_rejects, ignore_index=True) if source_rejects else pd.DataFrame()
-    )
-    if not rejected_frame.empty:
-        rejected_frame["source_id"] = mapping.source
-    account = SourceAccount(
-        source_id=mapping.source,
-        rows_read=run.rows,
-        cells=run.cells,
-        values_written=written,
-        cells_rejected=len(rejected_frame),
-        cells_empty=run.empty,
-    )
-    frames = {
-        "individual_values": values_frame,
-        "population_summaries": population,
-        "rejects": rejected_frame,
-        "name_matches": _name_match_rows(run),
-    }
-    return frames, account
 
 
 def _source_row(project: Project, mapping: Mapping, sha256: str, account: SourceAccount) -> dict:
@@ -323,6 +110,81 @@ def _source_checksum(mapping: Mapping) -> str:
     return sources.file_sha256(mapping.path)
 
 
+# The frames one source contributes besides its individual values; the cache stores them.
+_SOURCE_FRAMES = ("population_summaries", "rejects", "name_matches")
+
+
+@dataclass
+class _Gathered:
+    frames: dict[str, pd.DataFrame]  # every resource but individual_values
+    accounts: list[SourceAccount]
+    vocabulary: Vocabulary
+
+
+def _gather(
+    project: Project,
+    sink: ValueSink,
+    progress: Progress | None,
+    cache: SourceCache | None,
+    full: bool,
+) -> _Gathered:
+    """Read (or reuse) every source, in source-id order: values go to `sink`, the rest is
+    gathered into the package's other tables."""
+    settings = build_settings(project)
+    vocabulary = settings.vocabulary
+    contributed: dict[str, list[pd.DataFrame]] = {name: [] for name in _SOURCE_FRAMES}
+    source_rows: list[dict] = []
+    accounts: list[SourceAccount] = []
+    used: set[str] = set()
+    # source-id order is the row order of individual_values (package.row_order)
+    for mapping in sorted(project.mappings, key=lambda m: m.source):
+        check_declared_traits(mapping, vocabulary)
+        sha256 = _source_checksum(mapping)
+        key = source_key(project, mapping, sha256, vocabulary.version) if cache else ""
+        cached = cache.load(mapping.source, key) if cache and not full else None
+        if cached is not None:
+            frames = cached.frames
+            account = SourceAccount(**cached.meta["account"], reused=True)
+            sink.begin_source()
+            sink.add(frames["individual_values"])
+            sink.end_source()
+            if progress:
+                progress("source-reused", {"source": mapping.source, "path": str(mapping.path)})
+        else:
+            if progress:
+                progress("source", {"source": mapping.source, "path": str(mapping.path)})
+            output = read_source(project, mapping, settings, sink, progress)
+            frames, account = output.frames, output.account
+            # a source too large to keep in memory is not cached: reading it again costs about
+            # what copying its stored output would
+            if cache is not None and output.values is not None:
+                stored = {**frames, "individual_values": output.values}
+                cache.store(mapping.source, key, stored, {"account": _account_fields(account)})
+        accounts.append(account)
+        source_rows.append(_source_row(project, mapping, sha256, account))
+        for name in _SOURCE_FRAMES:
+            contributed[name].append(frames[name])
+        summaries = frames["population_summaries"]
+        if not summaries.empty:
+            used |= set(summaries["trait_id"].dropna())
+    if cache is not None:
+        cache.prune([m.source for m in project.mappings])
+    used |= sink.trait_ids
+    # reports list sources in the project's order, whatever order they were read in
+    position = {m.source: i for i, m in enumerate(project.mappings)}
+    accounts.sort(key=lambda a: position[a.source_id])
+    result = {
+        "population_summaries": _concat(
+            contributed["population_summaries"], tables.POPULATION_SUMMARIES
+        ),
+        "traits": _trait_rows(vocabulary, sorted(used)),
+        "sources": pd.DataFrame(source_rows),
+        "rejects": _concat(contributed["rejects"], tables.REJECTS),
+        "name_matches": _concat(contributed["name_matches"], tables.NAME_MATCHES),
+    }
+    return _Gathered(result, accounts, vocabulary)
+
+
 def build_tables(
     project: Project,
     progress: Progress | None = None,
@@ -330,54 +192,23 @@ def build_tables(
     cache: SourceCache | None = None,
     full: bool = False,
 ) -> tuple[dict[str, pd.DataFrame], list[SourceAccount], Vocabulary]:
-    """Read every source and return the package's tables (not yet written) and the accounts.
+    """Read every source and return the package's tables (in memory, not written) and the
+    accounts. For notebooks, reviews and tests; `build_project` streams values to disk instead.
 
     With a `cache`, a source whose file, mapping, decisions and settings are unchanged is not
     read again: its stored frames are used (`full=True` reads every source and refreshes the
     cache). Either way the tables are the same.
     """
-    settings = _build_settings(project)
-    vocabulary = settings.vocabulary
-    contributed: dict[str, list[pd.DataFrame]] = {name: [] for name in _SOURCE_FRAMES}
-    source_rows: list[dict] = []
-    accounts: list[SourceAccount] = []
-    for mapping in project.mappings:
-        _check_declared_traits(mapping, vocabulary)
-        sha256 = _source_checksum(mapping)
-        key = source_key(project, mapping, sha256, vocabulary.version) if cache else ""
-        cached = cache.load(mapping.source, key) if cache and not full else None
-        if cached is not None:
-            frames = cached.frames
-            account = SourceAccount(**cached.meta["account"], reused=True)
-            if progress:
-                progress("source-reused", {"source": mapping.source, "path": str(mapping.path)})
-        else:
-            if progress:
-                progress("source", {"source": mapping.source, "path": str(mapping.path)})
-            frames, account = _read_one_source(project, mapping, settings, progress)
-            if cache is not None:
-                cache.store(mapping.source, key, frames, {"account": _account_fields(account)})
-        accounts.append(account)
-        source_rows.append(_source_row(project, mapping, sha256, account))
-        for name in _SOURCE_FRAMES:
-            contributed[name].append(frames[name])
-    if cache is not None:
-        cache.prune([m.source for m in project.mappings])
-
-    individual_frame = _concat(contributed["individual_values"], tables.INDIVIDUAL_VALUES)
-    population_frame = _concat(contributed["population_summaries"], tables.POPULATION_SUMMARIES)
-    used = sorted(
-        set(individual_frame["trait_id"].dropna()) | set(population_frame["trait_id"].dropna())
-    )
-    result = {
-        "individual_values": individual_frame,
-        "population_summaries": population_frame,
-        "traits": _trait_rows(vocabulary, used),
-        "sources": pd.DataFrame(source_rows),
-        "rejects": _concat(contributed["rejects"], tables.REJECTS),
-        "name_matches": _concat(contributed["name_matches"], tables.NAME_MATCHES),
+    sink = ValueSink()
+    gathered = _gather(project, sink, progress, cache, full)
+    values = sink.kept()
+    frames = {
+        "individual_values": _concat(
+            [values] if values is not None else [], tables.INDIVIDUAL_VALUES
+        ),
+        **gathered.frames,
     }
-    return result, accounts, vocabulary
+    return frames, gathered.accounts, gathered.vocabulary
 
 
 def _concat(frames: list[pd.DataFrame], resource: tables.Resource) -> pd.DataFrame:
@@ -389,33 +220,8 @@ def _concat(frames: list[pd.DataFrame], resource: tables.Resource) -> pd.DataFra
     return tables.conform(frame[keep], resource)
 
 
-def _name_match_rows(run: _SourceRun) -> pd.DataFrame:
-    rows = []
-    for name, count in run.name_cells.items():
-        match = run.plan.names.get(name)
-        if match is None:
-            continue
-        rows.append(
-            {
-                "source_id": run.mapping.source,
-                "name": name,
-                "trait_id": match.trait_id,
-                "method": match.method,
-                "score": match.score,
-                "status": match.status,
-                "runner_up": match.runner_up,
-                "runner_up_score": match.runner_up_score,
-                "unit_hint": match.unit_hint,
-                "statistic_hint": match.statistic_hint,
-                "note": match.note or None,
-                "cells": count,
-            }
-        )
-    return pd.DataFrame(rows)
-
-
 def _trait_rows(vocabulary: Vocabulary, used: list[str]) -> pd.DataFrame:
-    from harmonize.assemble import _unit_texts
+    from harmonize.assemble import _unit_texts  # the same unit texts the values carry
 
     rows = []
     for trait_id in used:
@@ -462,8 +268,15 @@ def build_project(
     progress: Progress | None = None,
     full: bool = False,
     incremental: bool | None = None,
+    frictionless: bool | None = None,
 ) -> BuildReport:
     """Build the project's package into its output folder (or `output`) and return the report.
+
+    Individual values are streamed into the staging folder batch by batch, so memory stays
+    bounded by the batch size (`limits.batch_rows`), not by the input. The written package is
+    always checked column-wise with pyarrow (types, required, enums, keys, foreign keys, cell
+    accounting); `frictionless` (default: only for small packages, SMALL_PACKAGE_ROWS) also
+    validates it row by row with the frictionless library.
 
     `incremental` (default: on for projects with a project file) reuses the cached output of
     unchanged sources from `.harmonize-cache/` in the project root; `full=True` reads every
@@ -480,31 +293,35 @@ def build_project(
         leftovers = publish.clean_leftovers(output)
         if leftovers and progress:
             progress("leftovers-removed", {"removed": list(leftovers)})
-        frames, accounts, vocabulary = build_tables(project, progress, cache=cache, full=full)
-        unbalanced = [a for a in accounts if not a.balanced]
-        if unbalanced:
-            raise BuildError(
-                "cell accounting does not balance for "
-                + ", ".join(a.source_id for a in unbalanced),
-                hint="this is a bug in harmonize: please report it with the mapping",
-            )
-        info = PackageInfo(
-            name=project.name,
-            title=project.title,
-            description=project.description,
-            version=project.version or "0.0.0",
-            created=None,  # the build time goes to the change report, never into the package
-            vocabulary_version=vocabulary.version,
-            tool_version=__version__,
-        )
         staging = publish.new_staging_folder(output)
+        writer = None
         try:
+            writer = ResourceWriter(tables.INDIVIDUAL_VALUES, staging, project.output_format)
+            sink = ValueSink(writer, keep_rows=SMALL_PACKAGE_ROWS)
+            gathered = _gather(project, sink, progress, cache, full)
+            values_file, writer = writer.close(), None
+            accounts = gathered.accounts
+            unbalanced = [a for a in accounts if not a.balanced]
+            if unbalanced:
+                raise BuildError(
+                    "cell accounting does not balance for "
+                    + ", ".join(a.source_id for a in unbalanced),
+                    hint="this is a bug in harmonize: please report it with the mapping",
+                )
             if progress:
                 progress("write", {"folder": str(output)})
-            write_package(frames, staging, info, fmt=project.output_format)
-            validation = validate_package(staging)
+            write_package(
+                gathered.frames,
+                staging,
+                _package_info(project, gathered.vocabulary),
+                fmt=project.output_format,
+                written={tables.INDIVIDUAL_VALUES.name: values_file},
+            )
+            small = values_file.rows <= SMALL_PACKAGE_ROWS
+            run_frictionless = small if frictionless is None else frictionless
+            validation = _validate(staging, run_frictionless)
             if progress:
-                progress("validated", {"valid": validation.valid})
+                progress("validated", {"valid": validation.valid, "frictionless": run_frictionless})
             if not validation.valid:
                 first = validation.problems[0] if validation.problems else None
                 raise BuildError(
@@ -512,36 +329,76 @@ def build_project(
                     f"first: {first.resource if first else '?'}: {first.message if first else '?'})",
                     hint="the previous output was left untouched",
                 )
-            changes = compare_packages(
-                output if (output / "datapackage.json").is_file() else None,
-                staging,
-                built_at=datetime.now(UTC).isoformat(timespec="seconds"),
-                reused_sources=tuple(a.source_id for a in accounts if a.reused),
-                full=full,
-            )
+            changes = None
+            if small:
+                changes = compare_packages(
+                    output if (output / "datapackage.json").is_file() else None,
+                    staging,
+                    built_at=datetime.now(UTC).isoformat(timespec="seconds"),
+                    reused_sources=tuple(a.source_id for a in accounts if a.reused),
+                    full=full,
+                )
+            elif progress:
+                progress("changes-skipped", {"rows": values_file.rows})
             publish.swap_into_place(staging, output)
         finally:
+            if writer is not None:
+                writer.abort()
             if staging.exists():
                 shutil.rmtree(staging, ignore_errors=True)
-        json_file, text_file = changes_file_paths(output)
-        document = json.dumps(changes.to_json(), indent=2, sort_keys=True) + "\n"
-        publish.write_file_atomically(json_file, document.encode("utf-8"))
-        publish.write_file_atomically(text_file, ("\n".join(report_text(changes)) + "\n").encode())
+        changes_files: tuple[Path, ...] = ()
+        if changes is not None:
+            json_file, text_file = changes_file_paths(output)
+            document = json.dumps(changes.to_json(), indent=2, sort_keys=True) + "\n"
+            publish.write_file_atomically(json_file, document.encode("utf-8"))
+            text = "\n".join(report_text(changes)) + "\n"
+            publish.write_file_atomically(text_file, text.encode("utf-8"))
+            changes_files = (json_file, text_file)
         if progress:
             progress("published", {"folder": str(output)})
+    frames = gathered.frames
+    kept = sink.kept()
+    frames = {
+        "individual_values": kept if kept is not None else tables.INDIVIDUAL_VALUES.empty_frame(),
+        **frames,
+    }
     rejects = frames["rejects"]
     return BuildReport(
         output=output,
-        individual_values=len(frames["individual_values"]),
+        individual_values=values_file.rows,
         population_summaries=len(frames["population_summaries"]),
         rejects_by_reason=dict(sorted(Counter(rejects["reason"].astype(str)).items())),
         names_needing_review=_needing_review(frames),
         accounts=tuple(accounts),
         validation=validation,
-        vocabulary_version=vocabulary.version,
+        vocabulary_version=gathered.vocabulary.version,
         tables=frames,
         changes=changes,
-        changes_files=(json_file, text_file),
+        changes_files=changes_files,
         lock_taken_over=lock.taken_over.describe() if lock.taken_over else None,
         leftovers_removed=leftovers,
+        frictionless_checked=run_frictionless,
+        changes_skipped=changes is None,
     )
+
+
+def _package_info(project: Project, vocabulary: Vocabulary) -> PackageInfo:
+    return PackageInfo(
+        name=project.name,
+        title=project.title,
+        description=project.description,
+        version=project.version or "0.0.0",
+        created=None,  # the build time goes to the change report, never into the package
+        vocabulary_version=vocabulary.version,
+        tool_version=__version__,
+    )
+
+
+def _validate(folder: Path, frictionless: bool) -> ValidationResult:
+    """Column-wise checks and the cell accounting always; frictionless row by row on request."""
+    problems = list(check_package_arrow(folder).problems)
+    problems += accounting_problems(folder)
+    if frictionless:
+        seen = set(problems)
+        problems += [p for p in validate_package(folder).problems if p not in seen]
+    return ValidationResult(valid=not problems, problems=tuple(problems))

@@ -1,7 +1,7 @@
 """Write the output tables as a byte-reproducible Frictionless Data Package.
 
 Given one frame per resource of `harmonize.tables`, this module conforms each frame to its
-resource, sorts rows by the primary key, writes one CSV (the canonical, validated format) or
+resource, sorts rows (by the primary key; individual values by source and source row), writes one CSV (the canonical, validated format) or
 Parquet file per resource, and writes `datapackage.json` describing them: field types,
 required/enum constraints, primary and foreign keys, per-field `role` and `unit`, the
 individual/population split (`x-level`) and a package-level `x-harmonize` block.
@@ -20,7 +20,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -93,12 +93,15 @@ class PackageInfo:
 
 
 @dataclass(frozen=True)
-class _WrittenFile:
+class WrittenFile:
+    """A resource file written into the package folder, as the descriptor describes it."""
+
     path: str  # relative to the package folder
     format: str
     mediatype: str
     size: int
     sha256: str
+    rows: int = 0
 
 
 def write_package(
@@ -108,18 +111,20 @@ def write_package(
     *,
     fmt: str = "csv",
     field_units: Mapping[str, Mapping[str, str]] | None = None,
+    written: Mapping[str, WrittenFile] | None = None,
 ) -> Path:
     """Write every resource of `harmonize.tables.RESOURCES` and `datapackage.json` into `folder`.
 
     `tables` maps resource names to frames; a resource left out is written empty so the
     package always has the same shape (the foreign keys need `traits` and `sources`).
+    `written` names resources already streamed into `folder` by a `ResourceWriter` (a large
+    build writes `individual_values` batch by batch); they are described, not written again.
     `field_units` adds `"unit"` to fields: {resource: {column: pint unit}}.
     Returns the path of `datapackage.json`.
     """
-    writer = _WRITERS.get(fmt)
-    if writer is None:
+    if fmt not in _FORMATS:
         raise ConfigError(
-            f"unknown package format {fmt!r}", hint=f"use one of: {', '.join(_WRITERS)}"
+            f"unknown package format {fmt!r}", hint=f"use one of: {', '.join(_FORMATS)}"
         )
     if not NAME_PATTERN.match(info.name):
         raise ConfigError(
@@ -138,13 +143,15 @@ def write_package(
     resources = []
     roles: dict[str, str] = {}
     for resource in data_model.RESOURCES:
-        given = tables.get(resource.name)
-        frame = data_model.conform(_with_missing_columns(given, resource), resource)
-        frame = _sorted_by_primary_key(_empty_strings_to_missing(frame, resource), resource)
-        if resource.name == data_model.TRAITS.name:
-            roles = _trait_roles(frame)
-        written = writer(frame, resource, folder)
-        resources.append(_resource_descriptor(resource, written, units.get(resource.name, {})))
+        done = (written or {}).get(resource.name)
+        if done is None:
+            frame = _sorted_rows(prepare_frame(tables.get(resource.name), resource), resource)
+            if resource.name == data_model.TRAITS.name:
+                roles = _trait_roles(frame)
+            writer = ResourceWriter(resource, folder, fmt)
+            writer.write(frame)
+            done = writer.close()
+        resources.append(_resource_descriptor(resource, done, units.get(resource.name, {})))
 
     descriptor = _package_descriptor(info, roles, resources)
     target = folder / "datapackage.json"
@@ -153,6 +160,12 @@ def write_package(
 
 
 # --- frames -------------------------------------------------------------------------------
+
+
+def prepare_frame(frame: pd.DataFrame | None, resource: data_model.Resource) -> pd.DataFrame:
+    """The frame as it is written: the resource's columns and dtypes, empty strings missing."""
+    conformed = data_model.conform(_with_missing_columns(frame, resource), resource)
+    return _empty_strings_to_missing(conformed, resource)
 
 
 def _with_missing_columns(
@@ -181,12 +194,24 @@ def _empty_strings_to_missing(frame: pd.DataFrame, resource: data_model.Resource
     return out
 
 
-def _sorted_by_primary_key(frame: pd.DataFrame, resource: data_model.Resource) -> pd.DataFrame:
+def row_order(resource: data_model.Resource) -> list[str]:
+    """Columns the rows of a resource are sorted by.
+
+    Individual values are ordered by source and source row (cells of one row keep the order
+    given, i.e. the source's column order), so a large build can stream them in that order
+    without sorting the whole table; every other resource is sorted by its primary key.
+    """
+    if resource.name == data_model.INDIVIDUAL_VALUES.name:
+        return ["source_id", "source_row"]
+    return list(resource.primary_key)
+
+
+def _sorted_rows(frame: pd.DataFrame, resource: data_model.Resource) -> pd.DataFrame:
     # A stable sort keeps input order among ties, so even duplicate keys (which validation will
     # report) give the same bytes from the same input.
-    return frame.sort_values(
-        list(resource.primary_key), kind="mergesort", na_position="last"
-    ).reset_index(drop=True)
+    return frame.sort_values(row_order(resource), kind="mergesort", na_position="last").reset_index(
+        drop=True
+    )
 
 
 def _trait_roles(traits: pd.DataFrame) -> dict[str, str]:
@@ -194,25 +219,25 @@ def _trait_roles(traits: pd.DataFrame) -> dict[str, str]:
     return dict(zip(known["trait_id"].tolist(), known["role"].astype(object).tolist(), strict=True))
 
 
-# --- writers (dispatch table below) -------------------------------------------------------
+# --- writers ------------------------------------------------------------------------------
+
+# Rows per Parquet row group. Rows are buffered and written in groups of exactly this size
+# whether a frame arrives whole or in batches, so a streamed build and an in-memory one give
+# the same bytes.
+PARQUET_ROW_GROUP_ROWS = 131_072
 
 
-def _write_csv(frame: pd.DataFrame, resource: data_model.Resource, folder: Path) -> _WrittenFile:
+def _csv_text(frame: pd.DataFrame, resource: data_model.Resource, header: bool) -> bytes:
     out = frame.copy()
     for column in resource.columns:
         if column.type == "boolean":
             # Lower-case literals are the Table Schema default trueValues/falseValues everywhere.
             out[column.name] = out[column.name].map({True: "true", False: "false"})
-    text = out.to_csv(index=False, lineterminator="\n", na_rep="", float_format=None)
-    data = text.encode("utf-8")
-    name = f"{resource.name}.csv"
-    (folder / name).write_bytes(data)
-    return _WrittenFile(name, "csv", "text/csv", len(data), hashlib.sha256(data).hexdigest())
+    text = out.to_csv(index=False, header=header, lineterminator="\n", na_rep="", float_format=None)
+    return text.encode("utf-8")
 
 
-def _write_parquet(
-    frame: pd.DataFrame, resource: data_model.Resource, folder: Path
-) -> _WrittenFile:
+def _arrow_table(frame: pd.DataFrame, resource: data_model.Resource, schema: pa.Schema) -> pa.Table:
     arrays = []
     for column in resource.columns:
         series = frame[column.name]
@@ -228,33 +253,100 @@ def _write_parquet(
             arrays.append(pc.cast(parsed, pa.date32()))
         else:
             arrays.append(pa.array(series, type=_ARROW_TYPES[column.type], from_pandas=True))
-    # A required column is declared non-nullable only when it really holds no nulls; otherwise
-    # pyarrow would refuse the table and the validator could not report the offending rows.
-    schema = pa.schema(
-        [
-            pa.field(c.name, _ARROW_TYPES[c.type], nullable=not c.required or a.null_count > 0)
-            for c, a in zip(resource.columns, arrays, strict=True)
-        ]
-    )
-    table = pa.Table.from_arrays(arrays, schema=schema)
-    name = f"{resource.name}.parquet"
-    pq.write_table(
-        table,
-        folder / name,
-        compression="zstd",
-        compression_level=3,
-        write_statistics=True,
-        use_dictionary=True,
-        version="2.6",
-    )
-    # No `bytes`/`hash` for Parquet: frictionless cannot check them (ECOSYSTEM-NOTES §1).
-    return _WrittenFile(name, "parquet", "application/vnd.apache.parquet", 0, "")
+    return pa.Table.from_arrays(arrays, schema=schema)
 
 
-_WRITERS: dict[str, Callable[[pd.DataFrame, data_model.Resource, Path], _WrittenFile]] = {
-    "csv": _write_csv,
-    "parquet": _write_parquet,
-}
+def arrow_schema(resource: data_model.Resource) -> pa.Schema:
+    """The Parquet schema of a resource. Every field is nullable: a required column with a
+    missing cell must still be written, so that validation can report the row."""
+    return pa.schema([pa.field(c.name, _ARROW_TYPES[c.type]) for c in resource.columns])
+
+
+class ResourceWriter:
+    """Writes one resource file frame by frame (CSV or Parquet) and describes it at the end.
+
+    Frames must already be prepared (`prepare_frame`) and in the resource's row order
+    (`row_order`); the writer neither sorts nor holds more than one row group of rows.
+    """
+
+    def __init__(self, resource: data_model.Resource, folder: Path, fmt: str) -> None:
+        if fmt not in _FORMATS:
+            raise ConfigError(
+                f"unknown package format {fmt!r}", hint=f"use one of: {', '.join(_FORMATS)}"
+            )
+        self.resource = resource
+        self.fmt = fmt
+        self.name = f"{resource.name}.{fmt}"
+        self.path = Path(folder) / self.name
+        self.rows = 0
+        self._digest = hashlib.sha256()
+        self._size = 0
+        self._pending: list[pa.Table] = []
+        self._pending_rows = 0
+        self._schema = arrow_schema(resource)
+        if fmt == "csv":
+            self._stream = open(self.path, "wb")  # noqa: SIM115 - closed in close()
+            self._emit(_csv_text(self.resource.empty_frame(), resource, header=True))
+        else:
+            self._parquet = pq.ParquetWriter(
+                self.path,
+                self._schema,
+                compression="zstd",
+                compression_level=3,
+                write_statistics=True,
+                use_dictionary=True,
+                version="2.6",
+            )
+
+    def _emit(self, data: bytes) -> None:
+        self._stream.write(data)
+        self._digest.update(data)
+        self._size += len(data)
+
+    def write(self, frame: pd.DataFrame) -> None:
+        if frame.empty:
+            return
+        self.rows += len(frame)
+        if self.fmt == "csv":
+            self._emit(_csv_text(frame, self.resource, header=False))
+            return
+        self._pending.append(_arrow_table(frame, self.resource, self._schema))
+        self._pending_rows += len(frame)
+        if self._pending_rows >= PARQUET_ROW_GROUP_ROWS:
+            self._flush(final=False)
+
+    def _flush(self, *, final: bool) -> None:
+        table = pa.concat_tables(self._pending) if self._pending else self._schema.empty_table()
+        full = (len(table) // PARQUET_ROW_GROUP_ROWS) * PARQUET_ROW_GROUP_ROWS
+        for start in range(0, full, PARQUET_ROW_GROUP_ROWS):
+            self._parquet.write_table(table.slice(start, PARQUET_ROW_GROUP_ROWS))
+        rest = table.slice(full)
+        if final and len(rest):
+            self._parquet.write_table(rest)
+            rest = rest.slice(len(rest))
+        self._pending = [rest] if len(rest) else []
+        self._pending_rows = len(rest)
+
+    def close(self) -> WrittenFile:
+        if self.fmt == "csv":
+            self._stream.close()
+            return WrittenFile(
+                self.name, "csv", "text/csv", self._size, self._digest.hexdigest(), self.rows
+            )
+        self._flush(final=True)
+        self._parquet.close()
+        # No `bytes`/`hash` for Parquet: frictionless cannot check them (ECOSYSTEM-NOTES §1).
+        return WrittenFile(self.name, "parquet", "application/vnd.apache.parquet", 0, "", self.rows)
+
+    def abort(self) -> None:
+        """Close without describing (the build failed; the staging folder is removed)."""
+        if self.fmt == "csv":
+            self._stream.close()
+        else:
+            self._parquet.close()
+
+
+_FORMATS = ("csv", "parquet")
 
 
 # --- descriptor ---------------------------------------------------------------------------
@@ -310,7 +402,7 @@ def _field_descriptor(
 
 
 def _resource_descriptor(
-    resource: data_model.Resource, written: _WrittenFile, units: Mapping[str, str]
+    resource: data_model.Resource, written: WrittenFile, units: Mapping[str, str]
 ) -> dict[str, object]:
     descriptor: dict[str, object] = {
         "name": resource.name,

@@ -532,3 +532,14 @@ def _as_list(value: object) -> list[str]:
     if isinstance(value, str):
         return [value]
     return [str(v) for v in value] if isinstance(value, list) else []
+
+
+# Shared with `arrow_validate`, which streams the same column checks over large packages.
+load_descriptor = _load_descriptor
+check_column = _check_column
+size_and_hash = _size_and_hash
+problem = _problem
+is_parquet = _is_parquet
+as_list = _as_list
+referenced = _referenced
+FIRST_DATA_ROW = _FIRST_DATA_ROW

@@ -48,6 +48,7 @@ class CellBatch:
 
     cells: pd.DataFrame
     rows: int  # source rows in this batch
+    fraction_read: float | None = None  # share of the file read so far (for progress), if known
 
 
 def file_sha256(path: Path) -> str:
@@ -565,14 +566,41 @@ def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellB
     columns = trait_columns(mapping, header) if mapping.layout == "wide" else []
     described = _descriptive_columns(mapping)
     first_row = 1
+    measure = _PROGRESS_MEASURES.get(mapping.format)
+    total = measure[0](mapping, size) if measure else None
+    done = 0.0
     for frame in reader(mapping, header, limits):
         _refuse_oversized_cells(mapping, frame, described, first_row, limits)
         if mapping.layout == "wide":
             cells = _wide_cells(mapping, frame, columns, first_row)
         else:
             cells = _long_cells(mapping, frame, first_row)
-        yield CellBatch(cells=cells, rows=len(frame))
+        fraction = None
+        if measure and total:
+            done += measure[1](frame)
+            fraction = min(1.0, done / total)
+        yield CellBatch(cells=cells, rows=len(frame), fraction_read=fraction)
         first_row += len(frame)
+
+
+def _text_bytes(frame: pd.DataFrame) -> float:
+    """About how many bytes of a delimited file a frame of its cells took (for progress only)."""
+    lengths = sum(float(frame[c].str.len().sum()) for c in frame.columns if frame[c].dtype == "str")
+    return lengths + len(frame) * len(frame.columns)
+
+
+def _parquet_rows(mapping: Mapping, size: int) -> float:
+    return float(pq.ParquetFile(mapping.path).metadata.num_rows)
+
+
+# format -> (total of the file, amount one frame of it read): progress as a share of the file
+_PROGRESS_MEASURES: dict[
+    str, tuple[Callable[[Mapping, int], float], Callable[[pd.DataFrame], float]]
+] = {
+    "csv": (lambda mapping, size: float(size), _text_bytes),
+    "tsv": (lambda mapping, size: float(size), _text_bytes),
+    "parquet": (_parquet_rows, lambda frame: float(len(frame))),
+}
 
 
 def read_text_frame(mapping: Mapping, limits: Limits | None = None) -> pd.DataFrame:

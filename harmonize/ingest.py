@@ -1,0 +1,351 @@
+"""Read one source through the per-value stages: cells -> names -> values -> output rows.
+
+`read_source` streams a source's trait cells batch by batch (`sources.iter_cells`), learns its
+trait names once per distinct name (`match`), assembles each batch (`assemble`) and hands the
+batch's individual values, in row order, to a `ValueSink`; population statistic cells, rejects
+and name matches are gathered per source (they are small next to the values) and summarised at
+the end (`summaries`). The sink decides where values go: into a resource file being written
+(a streamed build: memory bounded by the batch size) and/or into memory (small builds, the
+cache, aggregation). Taking the output lock, caching, writing the package and validating it are
+left to `build`; running this per partition on a cluster is left to `distributed`.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from harmonize import sources, tables
+from harmonize.assemble import SourcePlan, assemble_batch
+from harmonize.errors import ConfigError
+from harmonize.match import MatchSettings, NameMatch, match_names, normalise_name
+from harmonize.package import ResourceWriter, prepare_frame
+from harmonize.project import Mapping, Project
+from harmonize.review import read_decisions
+from harmonize.summaries import aggregate_individuals, record_ids, summarise_population_cells
+from harmonize.taxa import load_taxon_synonyms
+from harmonize.temperature import TemperatureCorrection
+from harmonize.vocab import Vocabulary, load_vocabulary
+
+Progress = Callable[[str, dict], None]
+
+
+@dataclass(frozen=True)
+class SourceAccount:
+    source_id: str
+    rows_read: int
+    cells: int
+    values_written: int
+    cells_rejected: int
+    cells_empty: int
+    reused: bool = False  # taken from the cache of the previous build, not read again
+
+    @property
+    def balanced(self) -> bool:
+        return self.cells == self.values_written + self.cells_rejected + self.cells_empty
+
+
+@dataclass(frozen=True)
+class BuildSettings:
+    """Project-wide inputs every source is read with."""
+
+    vocabulary: Vocabulary
+    matching: MatchSettings
+    taxon_synonyms: dict[str, str] | None
+    correction: TemperatureCorrection | None
+
+
+def build_settings(project: Project) -> BuildSettings:
+    correction = None
+    if project.temperature_correction is not None:
+        spec = project.temperature_correction
+        correction = TemperatureCorrection(
+            method=spec.method,
+            reference_celsius=spec.reference_celsius,
+            activation_energy_ev=spec.activation_energy_ev,
+            q10=spec.q10,
+        )
+    return BuildSettings(
+        vocabulary=load_vocabulary(project.vocabulary),
+        matching=MatchSettings(**project.matching) if project.matching else MatchSettings(),
+        taxon_synonyms=(
+            load_taxon_synonyms(project.taxon_synonyms) if project.taxon_synonyms else None
+        ),
+        correction=correction,
+    )
+
+
+def check_declared_traits(mapping: Mapping, vocabulary: Vocabulary) -> None:
+    for trait_column in mapping.traits:
+        if trait_column.trait is not None and trait_column.trait not in vocabulary.terms:
+            try:
+                vocabulary.get(trait_column.trait)
+            except KeyError as error:
+                hint = str(error).strip("'\"")
+            else:  # pragma: no cover - get() found it after all
+                hint = None
+            raise ConfigError(
+                f"trait '{trait_column.trait}' is not in the vocabulary",
+                file=str(mapping.mapping_file),
+                column=trait_column.column,
+                hint=hint,
+            )
+
+
+def _declared_match(
+    name: str, trait: str, statistic_hint: str | None, unit_hint: str | None
+) -> NameMatch:
+    return NameMatch(
+        name=name,
+        normalised=name,
+        trait_id=trait,
+        method="declared",
+        score=100.0,
+        status="accepted",
+        runner_up=None,
+        runner_up_score=None,
+        unit_hint=unit_hint,
+        statistic_hint=statistic_hint,
+        note="declared in the mapping",
+    )
+
+
+def new_plan(project: Project, mapping: Mapping, settings: BuildSettings) -> SourcePlan:
+    return SourcePlan(
+        mapping=mapping,
+        vocabulary=settings.vocabulary,
+        names={},
+        correction=settings.correction,
+        max_cell_chars=project.limits.max_cell_chars,
+        taxon_synonyms=settings.taxon_synonyms,
+    )
+
+
+def learn_names(
+    plan: SourcePlan, names: list[str], settings: BuildSettings, decisions: dict
+) -> None:
+    """Match the names the plan has not seen yet (each distinct name once per source)."""
+    mapping = plan.mapping
+    new = [n for n in names if n not in plan.names]
+    if not new:
+        return
+    declared = {tc.column: tc for tc in mapping.traits}
+    to_match = []
+    for name in new:
+        spec = declared.get(name) if mapping.layout == "wide" else None
+        if spec is not None and spec.trait:
+            hints = normalise_name(name)
+            plan.names[name] = _declared_match(
+                name, spec.trait, hints.statistic_hint, hints.unit_hint
+            )
+        else:
+            to_match.append(name)
+        if spec is not None and spec.role:
+            plan.roles[name] = spec.role
+    if to_match:
+        plan.names.update(match_names(to_match, plan.vocabulary, settings.matching, decisions))
+
+
+def individual_rows(frame: pd.DataFrame, source_id: str) -> pd.DataFrame:
+    """A batch's individual values as output rows: in source-row order (cells of one row in
+    the order given), with source id and record id, without the internal column name."""
+    rows = frame["source_row"].to_numpy()
+    if len(rows) > 1 and (np.diff(rows) < 0).any():
+        frame = frame.iloc[np.argsort(rows, kind="stable")]
+    frame = frame.reset_index(drop=True)
+    frame["source_id"] = source_id
+    frame["record_id"] = record_ids(frame, source_id)
+    return frame.drop(columns=["column"])
+
+
+class ValueSink:
+    """Takes a build's individual values batch by batch, in the package's row order.
+
+    With a `writer`, every batch is written at once (a streamed build). Values are also kept in
+    memory, per source while the source has at most `keep_rows` of them (for the cache and
+    for aggregation) and for the whole build while it has at most `keep_rows` in all (for the
+    build report); `keep_rows=None` keeps everything (the in-memory build).
+    """
+
+    def __init__(self, writer: ResourceWriter | None = None, keep_rows: int | None = None):
+        self.writer = writer
+        self.keep_rows = keep_rows
+        self.rows = 0
+        self.trait_ids: set[str] = set()  # traits met in the values (for the `traits` table)
+        self._all: list[pd.DataFrame] | None = []
+        self._source: list[pd.DataFrame] | None = []
+        self._source_rows = 0
+        self._keep_source = False
+
+    def _within(self, rows: int) -> bool:
+        return self.keep_rows is None or rows <= self.keep_rows
+
+    def begin_source(self, keep: bool = False) -> None:
+        """Start a source; `keep=True` keeps its values whatever their number (aggregation)."""
+        self._source, self._source_rows, self._keep_source = [], 0, keep
+
+    def add(self, frame: pd.DataFrame) -> None:
+        if frame.empty:
+            return
+        prepared = prepare_frame(frame, tables.INDIVIDUAL_VALUES)
+        if self.writer is not None:
+            self.writer.write(prepared)
+        self.rows += len(prepared)
+        self._source_rows += len(prepared)
+        self.trait_ids.update(str(t) for t in prepared["trait_id"].dropna().unique())
+        if self._source is not None:
+            if self._keep_source or self._within(self._source_rows):
+                self._source.append(prepared)
+            else:
+                self._source = None
+        if self._all is not None:
+            self._all = self._all + [prepared] if self._within(self.rows) else None
+
+    @property
+    def source_rows(self) -> int:
+        """Values taken from the source being read."""
+        return self._source_rows
+
+    def end_source(self) -> pd.DataFrame | None:
+        """The values of the source just read, or None when too many were read to keep."""
+        kept, self._source = self._source, []
+        if kept is None:
+            return None
+        return pd.concat(kept, ignore_index=True) if kept else pd.DataFrame()
+
+    def kept(self) -> pd.DataFrame | None:
+        """Every value taken so far, or None when there were too many to keep."""
+        if self._all is None:
+            return None
+        if not self._all:
+            return tables.INDIVIDUAL_VALUES.empty_frame()
+        return pd.concat(self._all, ignore_index=True)
+
+
+@dataclass(frozen=True)
+class SourceOutput:
+    """What one source contributes besides the values handed to the sink."""
+
+    frames: dict[str, pd.DataFrame]  # population_summaries, rejects, name_matches
+    values: pd.DataFrame | None  # its individual values if the sink kept them
+    account: SourceAccount
+
+
+def read_source(
+    project: Project,
+    mapping: Mapping,
+    settings: BuildSettings,
+    sink: ValueSink,
+    progress: Progress | None = None,
+) -> SourceOutput:
+    """Read one source file; its values go to `sink`, the rest comes back with its account."""
+    decisions = read_decisions(mapping.decisions_file, settings.vocabulary)
+    plan = new_plan(project, mapping, settings)
+    sink.begin_source(keep=project.aggregate_individuals is not None)
+    rows = cells_total = empty = 0
+    statistic_cells: list[pd.DataFrame] = []
+    rejects: list[pd.DataFrame] = []
+    name_cells: Counter[str] = Counter()
+    for batch in sources.iter_cells(mapping, project.limits):
+        cells = batch.cells
+        names = cells["original_name"].astype(object).fillna("")
+        learn_names(plan, list(pd.unique(names)), settings, decisions)
+        name_cells.update(names.value_counts().to_dict())
+        result = assemble_batch(cells, plan)
+        rows += batch.rows
+        cells_total += len(cells)
+        empty += result.empty
+        if not result.individual.empty:
+            sink.add(individual_rows(result.individual, mapping.source))
+        if not result.statistic_cells.empty:
+            statistic_cells.append(result.statistic_cells)
+        if not result.rejects.empty:
+            rejects.append(result.rejects)
+        if progress:
+            progress(
+                "batch",
+                {"source": mapping.source, "rows": rows, "fraction": batch.fraction_read},
+            )
+    values = sink.end_source()
+    written = sink.source_rows
+    population, summary_rejects, summary_written = _population(
+        project, mapping, statistic_cells, values
+    )
+    written += summary_written
+    rejected = (
+        pd.concat(rejects + summary_rejects, ignore_index=True)
+        if rejects or summary_rejects
+        else pd.DataFrame()
+    )
+    if not rejected.empty:
+        rejected["source_id"] = mapping.source
+    account = SourceAccount(
+        source_id=mapping.source,
+        rows_read=rows,
+        cells=cells_total,
+        values_written=written,
+        cells_rejected=len(rejected),
+        cells_empty=empty,
+    )
+    frames = {
+        "population_summaries": population,
+        "rejects": rejected,
+        "name_matches": name_match_rows(mapping.source, plan, name_cells),
+    }
+    return SourceOutput(frames=frames, values=values, account=account)
+
+
+def _population(
+    project: Project,
+    mapping: Mapping,
+    statistic_cells: list[pd.DataFrame],
+    values: pd.DataFrame | None,
+) -> tuple[pd.DataFrame, list[pd.DataFrame], int]:
+    """Population summaries of one source, the cells they reject and the cells they use."""
+    population = pd.DataFrame()
+    rejects: list[pd.DataFrame] = []
+    written = 0
+    if statistic_cells:
+        summary = summarise_population_cells(pd.concat(statistic_cells, ignore_index=True), mapping)
+        population = summary.summaries
+        written = summary.cells_written
+        if not summary.rejects.empty:
+            rejects.append(summary.rejects)
+    if project.aggregate_individuals is not None and values is not None and not values.empty:
+        # summaries computed from this source's individuals: derived rows, not cells read, so
+        # they do not enter the cell account
+        computed = aggregate_individuals(values, project.aggregate_individuals, mapping.source)
+        if not computed.empty:
+            population = pd.concat(
+                [f for f in (population, computed) if not f.empty], ignore_index=True
+            )
+    return population, rejects, written
+
+
+def name_match_rows(source_id: str, plan: SourcePlan, name_cells: Counter[str]) -> pd.DataFrame:
+    rows = []
+    for name, count in name_cells.items():
+        match = plan.names.get(name)
+        if match is None:
+            continue
+        rows.append(
+            {
+                "source_id": source_id,
+                "name": name,
+                "trait_id": match.trait_id,
+                "method": match.method,
+                "score": match.score,
+                "status": match.status,
+                "runner_up": match.runner_up,
+                "runner_up_score": match.runner_up_score,
+                "unit_hint": match.unit_hint,
+                "statistic_hint": match.statistic_hint,
+                "note": match.note or None,
+                "cells": count,
+            }
+        )
+    return pd.DataFrame(rows)
