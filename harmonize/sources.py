@@ -415,8 +415,10 @@ def _clean_text(values: pd.Series, missing: set[str] | None = None) -> np.ndarra
     millions of times), then taken per cell by integer codes.
     """
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
-    texts = pd.Series(np.asarray(uniques, dtype=object), dtype=object)
-    stripped = texts.map(lambda v: v.strip() if isinstance(v, str) else v)
+    texts = pd.Series(uniques)
+    if texts.dtype == object:  # readers that hand over Python objects (numbers, text)
+        texts = texts.map(lambda v: v if v is None else str(v))
+    stripped = texts.astype("str").str.strip()
     blank = stripped.isna() | (stripped == "")
     if missing:
         blank |= stripped.isin(missing)
@@ -440,6 +442,23 @@ def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarr
     return out
 
 
+def _cell_frame(columns: dict[str, np.ndarray | pd.Series], length: int) -> pd.DataFrame:
+    """Cells as a frame without converting text back and forth: object arrays stay object
+    (pandas would otherwise re-encode every one as Arrow strings), source columns stay as read."""
+    index = pd.RangeIndex(length)
+    return pd.DataFrame(
+        {
+            name: (
+                pd.Series(values.to_numpy(), index=index, dtype=values.dtype)
+                if isinstance(values, pd.Series)
+                else pd.Series(values, index=index, dtype=values.dtype)
+            )
+            for name, values in columns.items()
+        },
+        index=index,
+    )
+
+
 def _wide_cells(
     mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int
 ) -> pd.DataFrame:
@@ -452,14 +471,14 @@ def _wide_cells(
             "source_row": rows,
             "column": np.full(len(frame), column, dtype=object),
             "original_name": np.full(len(frame), column, dtype=object),
-            "raw_value": frame[column].astype(object).to_numpy(),
+            "raw_value": frame[column],
             "raw_unit": np.full(len(frame), declared.unit if declared else None, dtype=object),
             "statistic": np.full(
                 len(frame), declared.statistic if declared else None, dtype=object
             ),
             **context,
         }
-        pieces.append(pd.DataFrame(piece))
+        pieces.append(_cell_frame(piece, len(frame)))
     if not pieces:
         return pd.DataFrame({name: pd.Series([], dtype=object) for name in CELL_COLUMNS})
     return pd.concat(pieces, ignore_index=True)[list(CELL_COLUMNS)]
@@ -477,21 +496,19 @@ def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.Dat
     assert spec is not None  # checked when the mapping was loaded
     context = _context_arrays(mapping, frame)
     none = np.full(len(frame), None, dtype=object)
-    cells = pd.DataFrame(
+    cells = _cell_frame(
         {
             "source_row": np.arange(first_row, first_row + len(frame), dtype=np.int64),
             "column": np.full(len(frame), spec.value, dtype=object),
             "original_name": _stripped(frame[spec.trait]),
-            "raw_value": frame[spec.value].astype(object).to_numpy(),
-            "raw_unit": frame[spec.unit].astype(object).to_numpy() if spec.unit else none,
-            "statistic": frame[spec.statistic].astype(object).to_numpy()
-            if spec.statistic
-            else none,
+            "raw_value": frame[spec.value],
+            "raw_unit": frame[spec.unit] if spec.unit else none,
+            "statistic": frame[spec.statistic] if spec.statistic else none,
             **context,
-        }
+            **({"n_raw": frame[spec.n]} if spec.n else {}),
+        },
+        len(frame),
     )
-    if spec.n:
-        cells["n_raw"] = frame[spec.n].astype(object).to_numpy()
     return cells[list(CELL_COLUMNS)]
 
 
@@ -523,14 +540,21 @@ def _refuse_long_names(mapping: Mapping, header: list[str], limits: Limits) -> N
             )
 
 
+def _text_lengths(values: pd.Series) -> np.ndarray:
+    """Characters per cell (0 for a missing one)."""
+    if values.dtype != object:  # Arrow-backed text: measured in one vectorised pass
+        return values.astype("str").str.len().fillna(0).to_numpy(dtype=np.int64)
+    # Python objects: measured once per distinct value
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    distinct = np.array([len(str(v)) for v in np.asarray(uniques, dtype=object)] + [0])
+    return distinct[codes]
+
+
 def _refuse_oversized_cells(
     mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int, limits: Limits
 ) -> None:
     for column in columns:
-        # lengths of the distinct texts only: context columns repeat a few names many times
-        codes, uniques = pd.factorize(frame[column], use_na_sentinel=True)
-        distinct = np.array([len(str(v)) for v in np.asarray(uniques, dtype=object)] + [0])
-        lengths = distinct[codes]
+        lengths = _text_lengths(frame[column])
         over = np.flatnonzero(lengths > limits.max_cell_chars)
         if len(over):
             raise SourceReadError(
