@@ -55,6 +55,7 @@ _LOGGED_PROGRESS = {
     "write": "writing",
     "validated": "validated",
     "published": "published",
+    "changes-skipped": "change-report-skipped",
     "lock-taken-over": "stale-lock-taken-over",
     "leftovers-removed": "leftovers-removed",
 }
@@ -108,6 +109,12 @@ def _counts(report: BuildReport) -> dict:
     "--quiet", "-q", is_flag=True, help="No progress lines; print only the summary (for cron)."
 )
 @click.option(
+    "--frictionless/--no-frictionless",
+    default=None,
+    help="Also validate the package row by row with the frictionless library (default: only "
+    "packages of at most 200,000 individual values; every build is checked column-wise).",
+)
+@click.option(
     "--log-json",
     "log_json",
     type=click.Path(dir_okay=False, allow_dash=True, path_type=Path),
@@ -115,13 +122,19 @@ def _counts(report: BuildReport) -> dict:
     "and moves the summary to stderr.",
 )
 def build(
-    project: Path, output: Path | None, full: bool, quiet: bool, log_json: Path | None
+    project: Path,
+    output: Path | None,
+    full: bool,
+    quiet: bool,
+    frictionless: bool | None,
+    log_json: Path | None,
 ) -> None:
     """Build the data package of PROJECT (a folder with harmonize.yaml, or the file itself).
 
     Unchanged sources are reused from the last build; the package is swapped in only when it
     is complete and valid; what changed is written beside it as OUTPUT.changes.json and
-    OUTPUT.changes.txt. A second build of the same output while one runs is refused.
+    OUTPUT.changes.txt (packages of at most 200,000 individual values). A second build of the
+    same output while one runs is refused. Long builds show rows read, rate and time left.
     """
     with ExitStack() as stack:
         stream = None
@@ -145,6 +158,7 @@ def build(
                 loaded,
                 output=output,
                 full=full,
+                frictionless=frictionless,
                 progress=_progress(log, progress_printer(quiet)),
             )
         except HarmonizeError as error:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import time
+
 import click
 
 from harmonize.build import BuildReport
@@ -83,7 +85,15 @@ def summary_lines(report: BuildReport) -> list[str]:
         "",
         f"accounting: rows x trait cells = written + rejected + empty for every source: {'yes' if report.balanced else 'NO'}",
     ]
-    lines += [f"frictionless validation: {state}"]
+    if report.frictionless_checked:
+        lines += [f"frictionless validation: {state}"]
+    else:
+        lines += [
+            f"validation (column-wise with pyarrow): {state}; frictionless row-by-row "
+            "validation skipped for a large package (--frictionless runs it)"
+        ]
+    if report.changes_skipped and report.changes is None:
+        lines.append("change report: skipped for a large package")
     if report.changes is not None:
         lines += ["", *report_text(report.changes)]
         if report.changes_files:
@@ -99,19 +109,79 @@ def summary_lines(report: BuildReport) -> list[str]:
     return lines
 
 
+# Progress lines of a long build: at most two a second (a terminal redraws one line in place).
+PROGRESS_INTERVAL_SECONDS = 0.5
+
+
+class _BatchProgress:
+    """Rows read, rate and time left of the source being read, throttled."""
+
+    def __init__(self, stream=None) -> None:
+        self.stream = stream
+        self.source: str | None = None
+        self.started = 0.0
+        self.shown = 0.0
+        self.in_place = False
+
+    def start(self, source: str) -> None:
+        self.finish()
+        self.source, self.started, self.shown = source, time.monotonic(), 0.0
+
+    def batch(self, detail: dict) -> None:
+        now = time.monotonic()
+        if now - self.shown < PROGRESS_INTERVAL_SECONDS:
+            return
+        self.shown = now
+        elapsed = max(now - self.started, 1e-9)
+        rows = int(detail["rows"])
+        text = f"  {detail['source']}: {rows:,} rows, {rows / elapsed:,.0f} rows/s"
+        fraction = detail.get("fraction")
+        if fraction:
+            left = elapsed * (1 - fraction) / fraction
+            text += f", {fraction:.0%} read, about {_duration(left)} left"
+        stream = self.stream or click.get_text_stream("stderr")
+        if stream.isatty():
+            click.echo("\r" + text.ljust(78), nl=False, err=True)
+            self.in_place = True
+        else:
+            click.echo(text, err=True)
+
+    def finish(self) -> None:
+        if self.in_place:
+            click.echo("", err=True)
+            self.in_place = False
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 90:
+        return f"{seconds:.0f} s"
+    if seconds < 5400:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
 def progress_printer(quiet: bool):
     if quiet:
         return None
+    batches = _BatchProgress()
 
     def show(event: str, detail: dict) -> None:
         if event == "source":
+            batches.start(detail["source"])
             click.echo(f"reading {detail['source']} ...", err=True)
         elif event == "source-reused":
+            batches.finish()
             click.echo(f"reusing {detail['source']} (unchanged since the last build)", err=True)
         elif event == "batch":
-            click.echo(f"  {detail['source']}: {detail['rows']} rows", err=True)
+            batches.batch(detail)
         elif event == "write":
+            batches.finish()
             click.echo("writing and validating the package ...", err=True)
+        elif event == "changes-skipped":
+            click.echo(
+                f"change report skipped: {detail['rows']:,} individual values is a large package",
+                err=True,
+            )
 
     return show
 
