@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 import time
 
 import click
@@ -139,7 +140,7 @@ class _BatchProgress:
         if fraction:
             left = elapsed * (1 - fraction) / fraction
             text += f", {fraction:.0%} read, about {_duration(left)} left"
-        stream = self.stream or click.get_text_stream("stderr")
+        stream = self.stream or sys.stderr
         if stream.isatty():
             click.echo("\r" + text.ljust(78), nl=False, err=True)
             self.in_place = True
