@@ -1,0 +1,233 @@
+"""Streaming builds: the streamed package equals the in-memory one, cells stay accounted for,
+and the column-wise (pyarrow) validation every build runs finds planted key violations.
+
+The large tables are made by `benchmarks/make_long_table.py` (seeded, INVENTED data) and read
+with a small batch size so that many batches are exercised. Key semantics (a primary key is
+unique, a foreign key must resolve, rows count the header as row 1) are those of the Table
+Schema specification (specs.frictionlessdata.io/table-schema, "Primary Keys", "Foreign Keys");
+where a package is small enough, the frictionless library — the reference implementation —
+must report the same rows as our pyarrow checks. No timings here: speed lives in benchmarks/.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import shutil
+from pathlib import Path
+
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+
+from harmonize import build, tables
+from harmonize.arrow_validate import accounting_problems, check_package_arrow
+from harmonize.build import build_project, build_tables
+from harmonize.package import PackageInfo, write_package
+from harmonize.package_validate import validate_package
+from harmonize.project import load_project
+
+REPO = Path(__file__).resolve().parents[1]
+ROWS = 60_000
+BATCH_ROWS = 4_000
+# The large-package branch (no values kept in memory, no frictionless, no change report) is
+# taken above this many values; lowered from SMALL_PACKAGE_ROWS so the tests stay quick.
+SMALL_ROWS_FOR_TESTS = 20_000
+INFO = PackageInfo(
+    name="scale-test",
+    title="Scale test (invented data)",
+    description="INVENTED data for tests.",
+    version="0.0.0",
+    created=None,
+    vocabulary_version="v",
+    tool_version="t",
+)
+
+
+def _generator():
+    spec = importlib.util.spec_from_file_location(
+        "make_long_table", REPO / "benchmarks" / "make_long_table.py"
+    )
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def _with_batch_rows(root: Path, rows: int) -> None:
+    project_file = root / "harmonize.yaml"
+    text = project_file.read_text(encoding="utf-8")
+    project_file.write_text(text + f"limits: {{batch_rows: {rows}}}\n", encoding="utf-8")
+
+
+@pytest.fixture
+def large_is_small(monkeypatch):
+    monkeypatch.setattr(build, "SMALL_PACKAGE_ROWS", SMALL_ROWS_FOR_TESTS)
+
+
+@pytest.fixture(scope="module")
+def long_project(tmp_path_factory) -> Path:
+    root = tmp_path_factory.mktemp("scale") / "long"
+    _generator().write_project(root, ROWS, seed=7, fmt="parquet")
+    _with_batch_rows(root, BATCH_ROWS)
+    return root
+
+
+@pytest.fixture(scope="module")
+def in_memory(long_project):
+    """The same project's tables built in memory (every value held at once)."""
+    return build_tables(load_project(long_project))
+
+
+def _files(folder: Path) -> dict[str, bytes]:
+    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+
+
+@pytest.mark.parametrize("fmt", ["parquet", "csv"])
+def test_streamed_build_writes_the_same_bytes_as_the_in_memory_tables(
+    long_project, in_memory, tmp_path, fmt, large_is_small
+):
+    frames, accounts, _ = in_memory
+    root = long_project
+    if fmt != "parquet":  # the generated project writes Parquet; a copy writes the other format
+        root = tmp_path / "project"
+        shutil.copytree(long_project, root, ignore=shutil.ignore_patterns("out", ".harmonize-*"))
+        text = (root / "harmonize.yaml").read_text(encoding="utf-8")
+        (root / "harmonize.yaml").write_text(
+            text.replace("format: parquet}", f"format: {fmt}}}"), encoding="utf-8"
+        )
+    project = load_project(root)
+    assert project.output_format == fmt
+    streamed = build_project(
+        project, output=tmp_path / "streamed", incremental=False, frictionless=False
+    )
+    write_package(frames, tmp_path / "memory", streamed_info(streamed.output), fmt=fmt)
+    assert streamed.individual_values == len(frames["individual_values"]) > SMALL_ROWS_FOR_TESTS
+    assert _files(streamed.output) == _files(tmp_path / "memory")
+    assert [a.cells for a in streamed.accounts] == [a.cells for a in accounts]
+
+
+def streamed_info(folder: Path) -> PackageInfo:
+    """The package-level metadata a build wrote, so both packages differ only by their rows."""
+    import json
+
+    descriptor = json.loads((folder / "datapackage.json").read_text(encoding="utf-8"))
+    return PackageInfo(
+        name=descriptor["name"],
+        title=descriptor["title"],
+        description=descriptor["description"],
+        version=descriptor["version"],
+        created=None,
+        vocabulary_version=descriptor["x-harmonize"]["vocabulary_version"],
+        tool_version=descriptor["x-harmonize"]["tool_version"],
+    )
+
+
+def test_large_build_accounts_for_every_row_and_keeps_values_out_of_memory(
+    long_project, tmp_path, large_is_small
+):
+    report = build_project(load_project(long_project), output=tmp_path / "out", incremental=False)
+    assert report.balanced
+    assert not report.frictionless_checked  # large package: column-wise checks only
+    assert report.changes is None and report.changes_skipped
+    assert report.tables["individual_values"].empty  # streamed to disk, not held
+    (account,) = report.accounts
+    assert account.rows_read == ROWS  # a long table: one cell per row
+    assert accounting_problems(report.output) == []
+    written = pq.read_table(report.output / "individual_values.parquet", columns=["source_row"])
+    rows = written.column("source_row").to_numpy()
+    assert len(rows) == account.values_written
+    assert (rows[1:] > rows[:-1]).all()  # source-row order, each long row once
+
+
+def test_wide_sources_read_in_tiny_batches_give_the_same_package(tmp_path):
+    """Wide tables give several cells per row; streamed, they must keep the in-memory order."""
+    root = tmp_path / "demo"
+    root.mkdir()
+    shutil.copy(REPO / "harmonize.yaml", root / "harmonize.yaml")
+    for folder in ("mappings", "demo_sources", "vocab"):
+        shutil.copytree(REPO / folder, root / folder)
+    _with_batch_rows(root, 7)
+    project = load_project(root)
+    report = build_project(project, output=tmp_path / "streamed", incremental=False)
+    frames, _, _ = build_tables(project)
+    write_package(frames, tmp_path / "memory", streamed_info(report.output), fmt="csv")
+    assert _files(report.output) == _files(tmp_path / "memory")
+    assert report.validation.valid and report.frictionless_checked
+
+
+# --- planted problems ------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def demo_frames():
+    frames, _, _ = build_tables(load_project(REPO))
+    return frames
+
+
+def _planted(demo_frames) -> tuple[dict[str, pd.DataFrame], int, int]:
+    frames = {name: frame.copy() for name, frame in demo_frames.items()}
+    values = (
+        frames["individual_values"]
+        .sort_values(["source_id", "source_row"], kind="mergesort")
+        .reset_index(drop=True)
+    )
+    duplicate_at, orphan_at = 5, 11
+    values.loc[duplicate_at, "record_id"] = values.loc[duplicate_at - 1, "record_id"]
+    values.loc[orphan_at, "trait_id"] = "no_such_trait"
+    frames["individual_values"] = values
+    # Table Schema rows count the header as row 1: data row i (0-based) is row i + 2
+    return frames, duplicate_at + 2, orphan_at + 2
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_arrow_validation_finds_a_planted_duplicate_key_and_orphan(demo_frames, tmp_path, fmt):
+    frames, duplicate_row, orphan_row = _planted(demo_frames)
+    write_package(frames, tmp_path, INFO, fmt=fmt)
+    result = check_package_arrow(tmp_path)
+    assert not result.valid
+    found = {(p.resource, p.type, p.row, p.field) for p in result.problems}
+    assert found == {
+        ("individual_values", "primary-key", duplicate_row, "record_id"),
+        ("individual_values", "foreign-key", orphan_row, "trait_id"),
+    }
+
+
+def test_arrow_validation_agrees_with_frictionless_on_the_same_csv_package(demo_frames, tmp_path):
+    frames, _, _ = _planted(demo_frames)
+    write_package(frames, tmp_path, INFO, fmt="csv")
+    ours = {(p.resource, p.type, p.row) for p in check_package_arrow(tmp_path).problems}
+    reference = {(p.resource, p.type, p.row) for p in validate_package(tmp_path).problems}
+    assert ours == reference and ours
+
+
+def test_arrow_validation_passes_the_demo_package(demo_frames, tmp_path):
+    write_package(demo_frames, tmp_path, INFO, fmt="csv")
+    assert check_package_arrow(tmp_path).problems == ()
+    assert validate_package(tmp_path).valid  # and the reference agrees
+
+
+def test_accounting_check_notices_a_count_that_does_not_add_up(demo_frames, tmp_path):
+    frames = {name: frame.copy() for name, frame in demo_frames.items()}
+    sources = frames["sources"]
+    individual = sources.index[sources["level"] == "individual"][0]
+    sources.loc[individual, "values_written"] += 1  # one value claimed that was never written
+    write_package(frames, tmp_path, INFO, fmt="parquet")
+    problems = accounting_problems(tmp_path)
+    named = sources.loc[individual, "source_id"]
+    # cells no longer add up, and individual_values holds one row fewer than claimed
+    assert len(problems) == 2
+    assert all(named in p.message and p.resource == tables.SOURCES.name for p in problems)
+
+
+def test_progress_reports_the_share_of_the_file_read(long_project, tmp_path):
+    events = []
+    build_project(
+        load_project(long_project),
+        output=tmp_path / "out",
+        incremental=False,
+        progress=lambda event, detail: events.append((event, detail)),
+    )
+    batches = [d for e, d in events if e == "batch"]
+    assert len(batches) == ROWS // BATCH_ROWS
+    fractions = [d["fraction"] for d in batches]
+    assert fractions == sorted(fractions) and fractions[-1] == pytest.approx(1.0)
+    assert [d["rows"] for d in batches][-1] == ROWS
