@@ -28,6 +28,7 @@ from harmonize.incremental import SourceCache, default_cache_folder, source_key
 from harmonize.ingest import (
     Progress,
     SourceAccount,
+    SourceInput,
     ValueSink,
     build_settings,
     check_declared_traits,
@@ -76,10 +77,12 @@ class BuildReport:
         return tuple(a.source_id for a in self.accounts if a.reused)
 
 
-def _source_row(project: Project, mapping: Mapping, sha256: str, account: SourceAccount) -> dict:
+def _source_row(
+    project: Project, mapping: Mapping, sha256: str, account: SourceAccount, path: str | None
+) -> dict:
     return {
         "source_id": mapping.source,
-        "path": mapping.path.relative_to(project.root.resolve()).as_posix(),
+        "path": path or mapping.path.relative_to(project.root.resolve()).as_posix(),
         "format": mapping.format,
         "level": mapping.level,
         "layout": mapping.layout,
@@ -127,6 +130,7 @@ def _gather(
     progress: Progress | None,
     cache: SourceCache | None,
     full: bool,
+    inputs: dict[str, SourceInput] | None = None,
 ) -> _Gathered:
     """Read (or reuse) every source, in source-id order: values go to `sink`, the rest is
     gathered into the package's other tables."""
@@ -139,10 +143,16 @@ def _gather(
     # source-id order is the row order of individual_values (package.row_order)
     for mapping in sorted(project.mappings, key=lambda m: m.source):
         check_declared_traits(mapping, vocabulary)
-        sha256 = _source_checksum(mapping)
+        replaced = (inputs or {}).get(mapping.source)
+        sha256 = replaced.sha256 if replaced else _source_checksum(mapping)
         key = source_key(project, mapping, sha256, vocabulary.version) if cache else ""
         cached = cache.load(mapping.source, key) if cache and not full else None
-        if cached is not None:
+        if replaced is not None:
+            if progress:
+                progress("source", {"source": mapping.source, "path": replaced.path})
+            output = read_source(project, mapping, settings, sink, progress, replaced.stager)
+            frames, account = output.frames, output.account
+        elif cached is not None:
             frames = cached.frames
             account = SourceAccount(**cached.meta["account"], reused=True)
             sink.begin_source()
@@ -161,7 +171,9 @@ def _gather(
                 stored = {**frames, "individual_values": output.values}
                 cache.store(mapping.source, key, stored, {"account": _account_fields(account)})
         accounts.append(account)
-        source_rows.append(_source_row(project, mapping, sha256, account))
+        source_rows.append(
+            _source_row(project, mapping, sha256, account, replaced.path if replaced else None)
+        )
         for name in _SOURCE_FRAMES:
             contributed[name].append(frames[name])
         summaries = frames["population_summaries"]
@@ -269,6 +281,7 @@ def build_project(
     full: bool = False,
     incremental: bool | None = None,
     frictionless: bool | None = None,
+    inputs: dict[str, SourceInput] | None = None,
 ) -> BuildReport:
     """Build the project's package into its output folder (or `output`) and return the report.
 
@@ -280,7 +293,8 @@ def build_project(
 
     `incremental` (default: on for projects with a project file) reuses the cached output of
     unchanged sources from `.harmonize-cache/` in the project root; `full=True` reads every
-    source again and gives the same package. Raises BuildLockedError when another build holds
+    source again and gives the same package. `inputs` reads named sources from elsewhere
+    (`distributed.build_partitioned`); those are never cached. Raises BuildLockedError when another build holds
     the output, BuildError when the package cannot be written or does not validate.
     """
     output = Path(output) if output is not None else project.output_folder
@@ -298,7 +312,7 @@ def build_project(
         try:
             writer = ResourceWriter(tables.INDIVIDUAL_VALUES, staging, project.output_format)
             sink = ValueSink(writer, keep_rows=SMALL_PACKAGE_ROWS)
-            gathered = _gather(project, sink, progress, cache, full)
+            gathered = _gather(project, sink, progress, cache, full, inputs)
             values_file, writer = writer.close(), None
             accounts = gathered.accounts
             unbalanced = [a for a in accounts if not a.balanced]

@@ -13,7 +13,7 @@ left to `build`; running this per partition on a cluster is left to `distributed
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -188,22 +188,23 @@ class ValueSink:
         """Start a source; `keep=True` keeps its values whatever their number (aggregation)."""
         self._source, self._source_rows, self._keep_source = [], 0, keep
 
-    def add(self, frame: pd.DataFrame) -> None:
+    def add(self, frame: pd.DataFrame, *, prepared: bool = False) -> None:
+        """Take a batch of values; `prepared` says it went through `package.prepare_frame`."""
         if frame.empty:
             return
-        prepared = prepare_frame(frame, tables.INDIVIDUAL_VALUES)
+        prepared_frame = frame if prepared else prepare_frame(frame, tables.INDIVIDUAL_VALUES)
         if self.writer is not None:
-            self.writer.write(prepared)
-        self.rows += len(prepared)
-        self._source_rows += len(prepared)
-        self.trait_ids.update(str(t) for t in prepared["trait_id"].dropna().unique())
+            self.writer.write(prepared_frame)
+        self.rows += len(prepared_frame)
+        self._source_rows += len(prepared_frame)
+        self.trait_ids.update(str(t) for t in prepared_frame["trait_id"].dropna().unique())
         if self._source is not None:
             if self._keep_source or self._within(self._source_rows):
-                self._source.append(prepared)
+                self._source.append(prepared_frame)
             else:
                 self._source = None
         if self._all is not None:
-            self._all = self._all + [prepared] if self._within(self.rows) else None
+            self._all = self._all + [prepared_frame] if self._within(self.rows) else None
 
     @property
     def source_rows(self) -> int:
@@ -235,36 +236,101 @@ class SourceOutput:
     account: SourceAccount
 
 
+@dataclass(frozen=True)
+class StagedBatch:
+    """One batch of a source after every per-value stage: what the driver of a build gathers.
+
+    Made by `stage_batch`, on this machine or on a worker of a cluster (`distributed`)."""
+
+    individual: pd.DataFrame  # output rows in row order, prepared for writing
+    statistic_cells: pd.DataFrame
+    rejects: pd.DataFrame
+    rows: int
+    cells: int
+    empty: int
+    name_cells: dict[str, int]
+    fraction_read: float | None = None
+
+
+def stage_batch(
+    batch: sources.CellBatch, plan: SourcePlan, fraction_read: float | None = None
+) -> StagedBatch:
+    """Assemble one batch of cells whose names the plan already knows (see `learn_names`)."""
+    cells = batch.cells
+    names = cells["original_name"].astype(object).fillna("")
+    result = assemble_batch(cells, plan)
+    individual = result.individual
+    if not individual.empty:
+        individual = prepare_frame(
+            individual_rows(individual, plan.mapping.source), tables.INDIVIDUAL_VALUES
+        )
+    return StagedBatch(
+        individual=individual,
+        statistic_cells=result.statistic_cells,
+        rejects=result.rejects,
+        rows=batch.rows,
+        cells=len(cells),
+        empty=result.empty,
+        name_cells=names.value_counts().to_dict(),
+        fraction_read=fraction_read if fraction_read is not None else batch.fraction_read,
+    )
+
+
+Stager = Callable[[SourcePlan], Iterator[StagedBatch]]
+
+
+def _local_stager(project: Project, settings: BuildSettings, decisions: dict) -> Stager:
+    """Read the source's file here, batch by batch, learning new names as they appear."""
+
+    def staged(plan: SourcePlan) -> Iterator[StagedBatch]:
+        for batch in sources.iter_cells(plan.mapping, project.limits):
+            names = batch.cells["original_name"].astype(object).fillna("")
+            learn_names(plan, list(pd.unique(names)), settings, decisions)
+            yield stage_batch(batch, plan)
+
+    return staged
+
+
+@dataclass(frozen=True)
+class SourceInput:
+    """A source's data read from somewhere other than its declared file, with the same mapping
+    (e.g. a partitioned copy of it, staged on a cluster by `distributed`)."""
+
+    path: str  # recorded in `sources.path`, relative to the project root
+    sha256: str  # recorded in `sources.sha256`
+    stager: Callable[[Project, BuildSettings, dict], Stager]
+
+
 def read_source(
     project: Project,
     mapping: Mapping,
     settings: BuildSettings,
     sink: ValueSink,
     progress: Progress | None = None,
+    stager: Callable[[Project, BuildSettings, dict], Stager] | None = None,
 ) -> SourceOutput:
-    """Read one source file; its values go to `sink`, the rest comes back with its account."""
+    """Read one source; its values go to `sink`, the rest comes back with its account.
+
+    `stager` makes the staged batches (default: read the file here); the distributed path
+    passes one that stages partitions of a dataset on a cluster."""
     decisions = read_decisions(mapping.decisions_file, settings.vocabulary)
     plan = new_plan(project, mapping, settings)
+    staged = (stager or _local_stager)(project, settings, decisions)
     sink.begin_source(keep=project.aggregate_individuals is not None)
     rows = cells_total = empty = 0
     statistic_cells: list[pd.DataFrame] = []
     rejects: list[pd.DataFrame] = []
     name_cells: Counter[str] = Counter()
-    for batch in sources.iter_cells(mapping, project.limits):
-        cells = batch.cells
-        names = cells["original_name"].astype(object).fillna("")
-        learn_names(plan, list(pd.unique(names)), settings, decisions)
-        name_cells.update(names.value_counts().to_dict())
-        result = assemble_batch(cells, plan)
+    for batch in staged(plan):
+        name_cells.update(batch.name_cells)
         rows += batch.rows
-        cells_total += len(cells)
-        empty += result.empty
-        if not result.individual.empty:
-            sink.add(individual_rows(result.individual, mapping.source))
-        if not result.statistic_cells.empty:
-            statistic_cells.append(result.statistic_cells)
-        if not result.rejects.empty:
-            rejects.append(result.rejects)
+        cells_total += batch.cells
+        empty += batch.empty
+        sink.add(batch.individual, prepared=True)
+        if not batch.statistic_cells.empty:
+            statistic_cells.append(batch.statistic_cells)
+        if not batch.rejects.empty:
+            rejects.append(batch.rejects)
         if progress:
             progress(
                 "batch",

@@ -295,20 +295,23 @@ def _column_as_text(mapping: Mapping, table: pa.Table, name: str, first_row: int
         ) from None
 
 
+def text_frame(mapping: Mapping, table: pa.Table, first_row: int) -> pd.DataFrame:
+    """An Arrow table of source rows as text columns, missing cells as '' (as a reader gives)."""
+    columns = {
+        name: _column_as_text(mapping, table, name, first_row) for name in table.column_names
+    }
+    return pa.table(columns).to_pandas().fillna("")
+
+
 def _read_parquet(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
     try:
         parquet = pq.ParquetFile(mapping.path, pre_buffer=False, buffer_size=1 << 20)
         wanted = _parquet_columns(mapping, parquet)
         first_row = 1
         for batch in parquet.iter_batches(batch_size=limits.batch_rows, columns=wanted):
-            table = pa.Table.from_batches([batch])
-            columns = {
-                name: _column_as_text(mapping, table, name, first_row)
-                for name in table.column_names
-            }
-            frame = pa.table(columns).to_pandas()
+            frame = text_frame(mapping, pa.Table.from_batches([batch]), first_row)
             first_row += len(frame)
-            yield frame.fillna("")
+            yield frame
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as error:
         raise SourceReadError(f"cannot read Parquet ({error})", file=str(mapping.path)) from None
 
@@ -491,6 +494,12 @@ def _stripped(values: pd.Series) -> np.ndarray:
     return np.array([*texts, None], dtype=object)[codes]
 
 
+def long_trait_names(mapping: Mapping, frame: pd.DataFrame) -> np.ndarray:
+    """A long table's trait names as its cells carry them (stripped; missing stays missing)."""
+    assert mapping.columns is not None
+    return _stripped(frame[mapping.columns.trait])
+
+
 def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.DataFrame:
     spec = mapping.columns
     assert spec is not None  # checked when the mapping was loaded
@@ -500,7 +509,7 @@ def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.Dat
         {
             "source_row": np.arange(first_row, first_row + len(frame), dtype=np.int64),
             "column": np.full(len(frame), spec.value, dtype=object),
-            "original_name": _stripped(frame[spec.trait]),
+            "original_name": long_trait_names(mapping, frame),
             "raw_value": frame[spec.value],
             "raw_unit": frame[spec.unit] if spec.unit else none,
             "statistic": frame[spec.statistic] if spec.statistic else none,
@@ -587,24 +596,36 @@ def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellB
     check_declared_columns(mapping, header)
     _refuse_long_names(mapping, header, limits)
     _, reader = READERS[mapping.format]
-    columns = trait_columns(mapping, header) if mapping.layout == "wide" else []
-    described = _descriptive_columns(mapping)
     first_row = 1
     measure = _PROGRESS_MEASURES.get(mapping.format)
     total = measure[0](mapping, size) if measure else None
     done = 0.0
     for frame in reader(mapping, header, limits):
-        _refuse_oversized_cells(mapping, frame, described, first_row, limits)
-        if mapping.layout == "wide":
-            cells = _wide_cells(mapping, frame, columns, first_row)
-        else:
-            cells = _long_cells(mapping, frame, first_row)
         fraction = None
         if measure and total:
             done += measure[1](frame)
             fraction = min(1.0, done / total)
-        yield CellBatch(cells=cells, rows=len(frame), fraction_read=fraction)
+        yield cells_of_frame(mapping, frame, header, first_row, limits, fraction)
         first_row += len(frame)
+
+
+def cells_of_frame(
+    mapping: Mapping,
+    frame: pd.DataFrame,
+    header: list[str],
+    first_row: int,
+    limits: Limits,
+    fraction_read: float | None = None,
+) -> CellBatch:
+    """The trait cells of one frame of source rows (text columns), the first being `first_row`.
+
+    Used batch by batch by `iter_cells`, and per partition of a dataset by `distributed`."""
+    _refuse_oversized_cells(mapping, frame, _descriptive_columns(mapping), first_row, limits)
+    if mapping.layout == "wide":
+        cells = _wide_cells(mapping, frame, trait_columns(mapping, header), first_row)
+    else:
+        cells = _long_cells(mapping, frame, first_row)
+    return CellBatch(cells=cells, rows=len(frame), fraction_read=fraction_read)
 
 
 def _text_bytes(frame: pd.DataFrame) -> float:
