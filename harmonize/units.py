@@ -266,7 +266,8 @@ def _read(raw: str, expected_key: str | None) -> _Reading | UnitProblem:
     text, qualifiers = _normalise(raw)
     if not text:
         return UnitProblem(
-            RejectReason.MISSING_UNIT, f"no unit given ({raw!r}); declare the unit in the mapping"
+            RejectReason.MISSING_UNIT,
+            f"no unit given ({raw!r}); declare the unit in the mapping (quick mode: --unit COLUMN=UNIT)",
         )
     if stray := _STRAY_CHARACTER.search(text):
         # pint's tokenizer silently drops characters such as '!' or ';' ('g !!' -> gram)
@@ -487,7 +488,7 @@ def conversion(raw_unit: str | None, canonical_unit: str) -> Conversion:
             return Conversion(1.0, 0.0, None, None, "", ())
         return _failed(
             RejectReason.MISSING_UNIT,
-            f"no unit given for trait unit {canonical_unit!r}; declare the unit in the mapping",
+            f"no unit given for trait unit {canonical_unit!r}; declare the unit in the mapping (quick mode: --unit COLUMN=UNIT)",
         )
     try:
         reading = _reading_for(raw_unit, canonical_unit)
