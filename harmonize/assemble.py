@@ -72,22 +72,30 @@ class BatchResult:
     empty: int
 
 
-def _join_flags(*parts: np.ndarray) -> np.ndarray:
-    """Join per-row flag arrays (object arrays of str, '' or None) with ';', skipping blanks.
+def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> np.ndarray:
+    """Join per-row flags with ';', skipping blanks. A part is an array of texts ('' or None
+    for no flag) or a (mask, text) pair: the text where the mask is true.
 
     Each part has few distinct texts, so rows are coded by their combination of texts and the
     joined string is built once per distinct combination, not once per row.
     """
-    count = len(parts[0]) if parts else 0
+    count = len(parts[0][0] if isinstance(parts[0], tuple) else parts[0]) if parts else 0
     combined = np.zeros(count, dtype=np.int64)
     texts: list[np.ndarray] = []
     codes_per_part: list[np.ndarray] = []
     for part in parts:
-        codes, uniques = pd.factorize(pd.Series(part, dtype=object).fillna(""))
-        texts.append(np.asarray(uniques, dtype=object))
+        if isinstance(part, tuple):
+            mask, text = part
+            codes, uniques = np.asarray(mask, dtype=np.int64), np.array(["", text], dtype=object)
+        else:
+            codes, uniques = pd.factorize(pd.Series(part, dtype=object).fillna(""))
+            uniques = np.asarray(uniques, dtype=object)
+        if len(uniques) <= 1 and (len(uniques) == 0 or uniques[0] == ""):
+            continue  # no flag from this part in this batch
+        texts.append(uniques)
         codes_per_part.append(codes)
         # re-factorise after each part so the combined code stays small
-        combined, _ = pd.factorize(combined * max(len(uniques), 1) + codes)
+        combined, _ = pd.factorize(combined * len(uniques) + codes)
     _, first, inverse = np.unique(combined, return_index=True, return_inverse=True)
     joined = np.array(
         [
@@ -410,22 +418,23 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     outside = location & numeric & ((converted < lo) | (converted > hi))
     qualifier = np.asarray(parsed.qualifier, dtype=object)
     flags = _join_flags(
-        np.where(outside, "outside-plausible-range", ""),
+        (outside, "outside-plausible-range"),
         _labelled("qualifier:", qualifier),
         conversion_flags,
         unit_flags,
-        np.where(unit_origin == "name-hint", "unit-from-name", ""),
+        (unit_origin == "name-hint", "unit-from-name"),
         stat_flags,
-        np.where(correction_label != None, "temperature-corrected", ""),  # noqa: E711 - elementwise
-        np.where(uncorrected, "rate-not-corrected:no-measurement-temperature", ""),
+        (pd.notna(correction_label), "temperature-corrected"),
+        (uncorrected, "rate-not-corrected:no-measurement-temperature"),
     )
 
-    written = fate.open
+    written = np.flatnonzero(fate.open)
     taxa = clean_taxon_names(cells["taxon_verbatim"], plan.taxon_synonyms)
     match_method = per_name["method"]
     match_score = per_name["score"].astype(float)
     role = np.where(pd.notna(per_name["role"]), per_name["role"], per_trait["role"])
-    out = pd.DataFrame(
+    out = _rows_of(
+        written,
         {
             "source_row": cells["source_row"].to_numpy(),
             "column": cells["column"].to_numpy(),
@@ -457,8 +466,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             "flags": np.where(flags == "", None, flags),
             "statistic": statistic,
             "n_raw": cells["n_raw"].to_numpy(),
-        }
-    )[written]
+        },
+    )
 
     if mapping.level == "individual":
         individual = out.drop(columns=["statistic", "n_raw"])
@@ -472,6 +481,18 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         rejects=fate.rejected(),
         empty=int(empty.sum()),
     )
+
+
+def _rows_of(rows: np.ndarray, columns: dict[str, np.ndarray]) -> pd.DataFrame:
+    """A frame of the given rows of each column, built without pandas re-encoding text:
+    object arrays stay object (they become Arrow strings once, when written)."""
+    out = {}
+    for name, column in columns.items():
+        taken = np.asarray(column)[rows]
+        if taken.dtype.kind in "US":  # numpy fixed-width text from np.where
+            taken = taken.astype(object)
+        out[name] = pd.Series(taken, dtype=taken.dtype)
+    return pd.DataFrame(out)
 
 
 def _blank_to_none(series: pd.Series) -> np.ndarray:
