@@ -91,7 +91,7 @@ def summary_lines(report: BuildReport) -> list[str]:
     else:
         lines += [
             f"validation (column-wise with pyarrow): {state}; frictionless row-by-row "
-            "validation skipped for a large package (--frictionless runs it)"
+            "validation not run (default only up to 200,000 values; --frictionless runs it)"
         ]
     if report.changes_skipped and report.changes is None:
         lines.append("change report: skipped for a large package")
