@@ -21,6 +21,7 @@ import hashlib
 import json
 import re
 from collections.abc import Mapping
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -288,6 +289,10 @@ class ResourceWriter:
             self._stream = open(self.path, "wb")  # noqa: SIM115 - closed in close()
             self._emit(_csv_text(self.resource.empty_frame(), resource, header=True))
         else:
+            # Row groups are encoded and compressed on one background thread (pyarrow releases
+            # the GIL there) while the build assembles the next batch; one thread keeps order.
+            self._encoder = ThreadPoolExecutor(max_workers=1, thread_name_prefix="parquet")
+            self._pending_groups: list[Future] = []
             self._parquet = pq.ParquetWriter(
                 self.path,
                 self._schema,
@@ -319,13 +324,27 @@ class ResourceWriter:
         table = pa.concat_tables(self._pending) if self._pending else self._schema.empty_table()
         full = (len(table) // PARQUET_ROW_GROUP_ROWS) * PARQUET_ROW_GROUP_ROWS
         for start in range(0, full, PARQUET_ROW_GROUP_ROWS):
-            self._parquet.write_table(table.slice(start, PARQUET_ROW_GROUP_ROWS))
+            self._write_group(table.slice(start, PARQUET_ROW_GROUP_ROWS))
         rest = table.slice(full)
         if final and len(rest):
-            self._parquet.write_table(rest)
+            self._write_group(rest)
             rest = rest.slice(len(rest))
         self._pending = [rest] if len(rest) else []
         self._pending_rows = len(rest)
+
+    def _write_group(self, table: pa.Table) -> None:
+        # at most two row groups wait for the encoder: memory stays bounded
+        while len(self._pending_groups) >= 2:
+            self._pending_groups.pop(0).result()
+        self._pending_groups.append(self._encoder.submit(self._parquet.write_table, table))
+
+    def _drain(self) -> None:
+        try:
+            for group in self._pending_groups:
+                group.result()  # re-raises an encoding error here, in order
+        finally:
+            self._pending_groups = []
+            self._encoder.shutdown(wait=True)
 
     def close(self) -> WrittenFile:
         if self.fmt == "csv":
@@ -334,6 +353,7 @@ class ResourceWriter:
                 self.name, "csv", "text/csv", self._size, self._digest.hexdigest(), self.rows
             )
         self._flush(final=True)
+        self._drain()
         self._parquet.close()
         # No `bytes`/`hash` for Parquet: frictionless cannot check them (ECOSYSTEM-NOTES §1).
         return WrittenFile(self.name, "parquet", "application/vnd.apache.parquet", 0, "", self.rows)
@@ -343,6 +363,9 @@ class ResourceWriter:
         if self.fmt == "csv":
             self._stream.close()
         else:
+            for group in self._pending_groups:
+                group.cancel()
+            self._encoder.shutdown(wait=True)
             self._parquet.close()
 
 

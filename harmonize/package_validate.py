@@ -35,7 +35,7 @@ from contextlib import contextmanager
 from copy import deepcopy
 from dataclasses import dataclass, replace
 from pathlib import Path, PurePosixPath, PureWindowsPath
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from urllib.parse import urlparse
 
 import pandas as pd
@@ -44,7 +44,9 @@ import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 import requests
-from frictionless import FrictionlessException, Package, system
+
+if TYPE_CHECKING:
+    from frictionless import FrictionlessException
 
 from harmonize.errors import ConfigError, SourceNotFoundError, UnsafePathError
 
@@ -205,6 +207,8 @@ class _NoNetworkSession(requests.Session):
 def _hardened_frictionless() -> Iterator[None]:
     # frictionless's own `use_context` restores the previous settings only when its block ends
     # without an exception; entering and leaving it by hand restores them in every case.
+    from frictionless import system  # imported when used: large builds never need it
+
     context = system.use_context(trusted=False, http_session=_NoNetworkSession())
     context.__enter__()
     try:
@@ -229,6 +233,8 @@ def _validate_with_frictionless(
             ]
             if not schema["foreignKeys"]:
                 del schema["foreignKeys"]
+    from frictionless import FrictionlessException, Package
+
     problems: list[ValidationProblem] = []
     with _hardened_frictionless():
         try:
