@@ -8,7 +8,7 @@ makes from one file with those rows:
 1. the distinct trait names of the whole dataset are gathered on the cluster and matched once,
    here (`ingest.learn_names`), so every partition works with the same decisions;
 2. each partition goes through the very functions a local build runs per batch
-   (`sources.text_frame`, `sources.cells_of_frame`, `ingest.stage_batch`: names, values, units,
+   (`sources.text_frame`, `cells.cells_of_frame`, `ingest.stage_batch`: names, values, units,
    flags, record ids) as a `dask.delayed` task, with its source rows numbered from the row
    counts of the partitions before it;
 3. the staged partitions come back in order and go through the local build's driver
@@ -31,7 +31,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from harmonize import sources
+from harmonize import cells, sources
 from harmonize.assemble import SourcePlan
 from harmonize.build import BuildReport, build_project
 from harmonize.errors import ConfigError, SourceNotFoundError
@@ -83,7 +83,7 @@ def _stage_partition(
     """What a local build does to one batch, done to one partition (runs on a worker)."""
     table = pa.Table.from_pandas(frame, preserve_index=False)
     text = sources.text_frame(plan.mapping, table, first_row)
-    batch = sources.cells_of_frame(plan.mapping, text, header, first_row, limits)
+    batch = cells.cells_of_frame(plan.mapping, text, header, first_row, limits)
     return stage_batch(batch, plan)
 
 
@@ -92,7 +92,7 @@ def _distinct_names(frame: pd.DataFrame, mapping: SourceMapping) -> pd.Series:
     spec = mapping.columns
     assert spec is not None
     table = pa.Table.from_pandas(frame[[spec.trait]], preserve_index=False)
-    names = sources.long_trait_names(mapping, sources.text_frame(mapping, table, 1))
+    names = cells.long_trait_names(mapping, sources.text_frame(mapping, table, 1))
     return pd.Series(pd.unique(pd.Series(names, dtype=object).fillna("")), dtype=object)
 
 
@@ -122,7 +122,7 @@ def partitioned_input(
                 )
                 names = sorted(set(_compute(dask, client, per_part)))
             else:
-                names = sources.trait_columns(mapping, wanted)
+                names = cells.trait_columns(mapping, wanted)
             learn_names(plan, names, settings, decisions)
             lengths = list(_compute(dask, client, data.map_partitions(len)))
             starts = [1 + sum(lengths[:i]) for i in range(len(lengths))]

@@ -21,6 +21,7 @@ import pandas as pd
 
 from harmonize import sources, tables
 from harmonize.assemble import SourcePlan, assemble_batch
+from harmonize.cells import CellBatch
 from harmonize.errors import ConfigError
 from harmonize.match import MatchSettings, NameMatch, match_names, normalise_name
 from harmonize.package import ResourceWriter, prepare_frame
@@ -253,7 +254,7 @@ class StagedBatch:
 
 
 def stage_batch(
-    batch: sources.CellBatch, plan: SourcePlan, fraction_read: float | None = None
+    batch: CellBatch, plan: SourcePlan, fraction_read: float | None = None
 ) -> StagedBatch:
     """Assemble one batch of cells whose names the plan already knows (see `learn_names`)."""
     cells = batch.cells
@@ -299,9 +300,7 @@ def _local_stager(project: Project, settings: BuildSettings, decisions: dict) ->
 CELLS_PER_STAGE = 65_536
 
 
-def cell_slices(
-    batch: sources.CellBatch, size: int = CELLS_PER_STAGE
-) -> Iterator[sources.CellBatch]:
+def cell_slices(batch: CellBatch, size: int = CELLS_PER_STAGE) -> Iterator[CellBatch]:
     """A batch's cells in slices of at most `size`, in source-row order (so that each slice's
     output rows follow the previous slice's); the batch's row count goes with the first."""
     cells = batch.cells
@@ -312,7 +311,7 @@ def cell_slices(
     if (np.diff(rows) < 0).any():  # wide tables give cells column by column
         cells = cells.iloc[np.argsort(rows, kind="stable")].reset_index(drop=True)
     for start in range(0, len(cells), size):
-        yield sources.CellBatch(
+        yield CellBatch(
             cells=cells.iloc[start : start + size].reset_index(drop=True),
             rows=batch.rows if start == 0 else 0,
             fraction_read=batch.fraction_read,

@@ -1,0 +1,229 @@
+"""Reshape frames of source rows into trait cells: one row per trait cell, text as written.
+
+A wide table gives one cell per row and trait column (unclaimed columns included, so that no
+data is silently dropped), a long table one cell per row. Context columns (taxon, sex, site,
+...) are cleaned once per distinct text and carried on every cell. Names, units, statistics and
+context cells above `limits.max_cell_chars` refuse the file, naming row and column. Reading
+files is left to `sources`; parsing numbers, matching names and converting units to later
+stages.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from harmonize.errors import SourceReadError
+from harmonize.project import Limits, Mapping
+
+CONTEXT_COLUMNS = {
+    "taxon": "taxon_verbatim",
+    "individual": "individual_id",
+    "sex": "sex",
+    "life_stage": "life_stage",
+    "site": "site",
+    "date": "date",
+    "sample_size": "n_raw",
+}
+CELL_COLUMNS = (
+    "source_row", "column", "original_name", "raw_value", "raw_unit", "statistic", "n_raw",
+    "taxon_verbatim", "individual_id", "sex", "life_stage", "site", "date", "temperature_raw",
+)  # fmt: skip
+
+
+@dataclass(frozen=True)
+class CellBatch:
+    """Trait cells of one batch of source rows (one row per cell, columns CELL_COLUMNS)."""
+
+    cells: pd.DataFrame
+    rows: int  # source rows in this batch
+    fraction_read: float | None = None  # share of the file read so far (for progress), if known
+
+
+def trait_columns(mapping: Mapping, header: list[str]) -> list[str]:
+    """Wide layout: the columns holding trait values (declared ones and every unclaimed column).
+
+    Unclaimed columns are treated as trait columns matched by name so that no data is silently
+    dropped; a mapping lists columns that are neither trait nor context under `ignore`.
+    """
+    context = set(mapping.context.values())
+    if mapping.temperature and mapping.temperature.column:
+        context.add(mapping.temperature.column)
+    return [c for c in header if c not in context and c not in mapping.ignore]
+
+
+# ---------------------------------------------------------------- reshaping
+
+
+def _clean_text(values: pd.Series, missing: set[str] | None = None) -> np.ndarray:
+    """Stripped text as an object array, None where blank or a missing-value token.
+
+    Worked out once per distinct cell text (a site or species column repeats a few names
+    millions of times), then taken per cell by integer codes.
+    """
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    texts = pd.Series(uniques)
+    if texts.dtype == object:  # readers that hand over Python objects (numbers, text)
+        texts = texts.map(lambda v: v if v is None else str(v))
+    stripped = texts.astype("str").str.strip()
+    blank = stripped.isna() | (stripped == "")
+    if missing:
+        blank |= stripped.isin(missing)
+    cleaned = np.append(np.where(blank.to_numpy(), None, stripped.to_numpy(dtype=object)), None)
+    return cleaned[codes]  # code -1 (a missing cell) takes the trailing None
+
+
+def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarray]:
+    out: dict[str, np.ndarray] = {}
+    missing = set(mapping.read.missing)
+    for key, target in CONTEXT_COLUMNS.items():
+        column = mapping.context.get(key)
+        if column is None:
+            out[target] = np.full(len(frame), None, dtype=object)
+            continue
+        out[target] = _clean_text(frame[column], missing)
+    if mapping.temperature and mapping.temperature.column:
+        out["temperature_raw"] = frame[mapping.temperature.column].to_numpy(dtype=object)
+    else:
+        out["temperature_raw"] = np.full(len(frame), None, dtype=object)
+    return out
+
+
+def _cell_frame(columns: dict[str, np.ndarray | pd.Series], length: int) -> pd.DataFrame:
+    """Cells as a frame without converting text back and forth: object arrays stay object
+    (pandas would otherwise re-encode every one as Arrow strings), source columns stay as read."""
+    index = pd.RangeIndex(length)
+    return pd.DataFrame(
+        {
+            name: (
+                pd.Series(values.to_numpy(), index=index, dtype=values.dtype)
+                if isinstance(values, pd.Series)
+                else pd.Series(values, index=index, dtype=values.dtype)
+            )
+            for name, values in columns.items()
+        },
+        index=index,
+    )
+
+
+def _wide_cells(
+    mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int
+) -> pd.DataFrame:
+    rows = np.arange(first_row, first_row + len(frame), dtype=np.int64)
+    context = _context_arrays(mapping, frame)
+    pieces = []
+    for column in columns:
+        declared = mapping.trait_column(column)
+        piece = {
+            "source_row": rows,
+            "column": np.full(len(frame), column, dtype=object),
+            "original_name": np.full(len(frame), column, dtype=object),
+            "raw_value": frame[column],
+            "raw_unit": np.full(len(frame), declared.unit if declared else None, dtype=object),
+            "statistic": np.full(
+                len(frame), declared.statistic if declared else None, dtype=object
+            ),
+            **context,
+        }
+        pieces.append(_cell_frame(piece, len(frame)))
+    if not pieces:
+        return pd.DataFrame({name: pd.Series([], dtype=object) for name in CELL_COLUMNS})
+    return pd.concat(pieces, ignore_index=True)[list(CELL_COLUMNS)]
+
+
+def _stripped(values: pd.Series) -> np.ndarray:
+    """Stripped text (missing cells stay missing), once per distinct text."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    texts = [v.strip() if isinstance(v, str) else v for v in np.asarray(uniques, dtype=object)]
+    return np.array([*texts, None], dtype=object)[codes]
+
+
+def long_trait_names(mapping: Mapping, frame: pd.DataFrame) -> np.ndarray:
+    """A long table's trait names as its cells carry them (stripped; missing stays missing)."""
+    assert mapping.columns is not None
+    return _stripped(frame[mapping.columns.trait])
+
+
+def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.DataFrame:
+    spec = mapping.columns
+    assert spec is not None  # checked when the mapping was loaded
+    context = _context_arrays(mapping, frame)
+    none = np.full(len(frame), None, dtype=object)
+    cells = _cell_frame(
+        {
+            "source_row": np.arange(first_row, first_row + len(frame), dtype=np.int64),
+            "column": np.full(len(frame), spec.value, dtype=object),
+            "original_name": long_trait_names(mapping, frame),
+            "raw_value": frame[spec.value],
+            "raw_unit": frame[spec.unit] if spec.unit else none,
+            "statistic": frame[spec.statistic] if spec.statistic else none,
+            **context,
+            **({"n_raw": frame[spec.n]} if spec.n else {}),
+        },
+        len(frame),
+    )
+    return cells[list(CELL_COLUMNS)]
+
+
+# ---------------------------------------------------------------- size limits
+# Oversized trait values become `cell-too-large` rejects (see `values`). Names, units, statistics
+# and context are not values: one of them above `limits.max_cell_chars` usually means the
+# mapping names the wrong column (a notes column as the site), so the file is refused with the
+# row and column, before fuzzy matching or writing runs over megabytes of text.
+
+
+def _descriptive_columns(mapping: Mapping) -> list[str]:
+    columns = list(mapping.context.values())
+    if mapping.columns is not None:
+        spec = mapping.columns
+        columns += [c for c in (spec.trait, spec.unit, spec.statistic, spec.n) if c]
+    return list(dict.fromkeys(columns))
+
+
+def _text_lengths(values: pd.Series) -> np.ndarray:
+    """Characters per cell (0 for a missing one)."""
+    if values.dtype != object:  # Arrow-backed text: measured in one vectorised pass
+        return values.astype("str").str.len().fillna(0).to_numpy(dtype=np.int64)
+    # Python objects: measured once per distinct value
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    distinct = np.array([len(str(v)) for v in np.asarray(uniques, dtype=object)] + [0])
+    return distinct[codes]
+
+
+def _refuse_oversized_cells(
+    mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int, limits: Limits
+) -> None:
+    for column in columns:
+        lengths = _text_lengths(frame[column])
+        over = np.flatnonzero(lengths > limits.max_cell_chars)
+        if len(over):
+            raise SourceReadError(
+                f"cell has {int(lengths[over[0]])} characters, more than limits.max_cell_chars "
+                f"({limits.max_cell_chars})",
+                file=str(mapping.path),
+                row=first_row + int(over[0]),
+                column=column,
+                hint="check that the mapping names the right column, or raise "
+                "limits.max_cell_chars in harmonize.yaml",
+            )
+
+
+def cells_of_frame(
+    mapping: Mapping,
+    frame: pd.DataFrame,
+    header: list[str],
+    first_row: int,
+    limits: Limits,
+    fraction_read: float | None = None,
+) -> CellBatch:
+    """The trait cells of one frame of source rows (text columns), the first being `first_row`.
+
+    Used batch by batch by `iter_cells`, and per partition of a dataset by `distributed`."""
+    _refuse_oversized_cells(mapping, frame, _descriptive_columns(mapping), first_row, limits)
+    if mapping.layout == "wide":
+        cells = _wide_cells(mapping, frame, trait_columns(mapping, header), first_row)
+    else:
+        cells = _long_cells(mapping, frame, first_row)
+    return CellBatch(cells=cells, rows=len(frame), fraction_read=fraction_read)
