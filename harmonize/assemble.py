@@ -1,7 +1,7 @@
 """Turn trait cells into output rows: individual values, population statistic cells and rejects.
 
 This stage applies, per batch of cells and always column-wise: the name decisions (made by
-`match`), value parsing (`values`), unit conversion (`units`, one factor per (unit, trait) group),
+`match`, tabulated once per distinct name and trait by `lookup_tables`), value parsing (`values`), unit conversion (`units`, one factor per (unit, trait) group),
 plausibility flags and temperature correction (`temperature`). It decides for every cell exactly
 one fate: empty by declaration, rejected with a reason, or written. Pivoting population statistic
 cells into summaries is left to `summaries`; writing files is left to `package`.
@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from harmonize import units, values
+from harmonize import lookup_tables, units, values
 from harmonize.errors import RejectReason
 from harmonize.match import NameMatch
 from harmonize.project import STATISTICS, Mapping
@@ -203,7 +203,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # 2. names: one lookup table per distinct name, taken per cell by integer codes
     names = cells["original_name"].astype(object).fillna("")
     name_codes, distinct = pd.factorize(names)
-    name_table = _name_table(list(distinct), plan)
+    name_table = lookup_tables.name_table(list(distinct), plan)
     per_name = {
         column: name_table[column].to_numpy(dtype=object)[name_codes]
         for column in name_table.columns
@@ -217,7 +217,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     trait_codes, used_traits = pd.factorize(
         pd.Series(trait_id, dtype=object), use_na_sentinel=False
     )
-    trait_table = _trait_table(list(used_traits), vocabulary, mapping.level)
+    trait_table = lookup_tables.trait_table(list(used_traits), vocabulary, mapping.level)
     per_trait = {
         column: trait_table[column].to_numpy()[trait_codes] for column in trait_table.columns
     }
@@ -502,15 +502,6 @@ def _blank_to_none(series: pd.Series) -> np.ndarray:
     return np.array([t if t else None for t in texts] + [None], dtype=object)[codes]
 
 
-def _unmatched_message(name: str, match: NameMatch | None) -> str:
-    if match is None or match.trait_id is None:
-        return f"trait name '{name}' matches no vocabulary term; add a decision in the review sheet or declare `trait:` in the mapping"
-    return (
-        f"trait name '{name}' needs review: best guess '{match.trait_id}' (score {match.score:.0f}); "
-        "accept or reject it in the review sheet, or declare `trait:` in the mapping"
-    )
-
-
 def _correction_for(plan: SourcePlan, term) -> TemperatureCorrection:
     """The project's correction with the Arrhenius temperature of the source, else of the trait."""
     correction = plan.correction
@@ -522,97 +513,6 @@ def _correction_for(plan: SourcePlan, term) -> TemperatureCorrection:
     if term is not None and term.arrhenius_temperature is not None:
         return correction.with_arrhenius_temperature(term.arrhenius_temperature)
     return correction
-
-
-def _name_table(distinct: list[str], plan: SourcePlan) -> pd.DataFrame:
-    """One row per distinct name: the accepted trait (or None) and what goes with it."""
-    rows = []
-    for name in distinct:
-        match = plan.names.get(name)
-        accepted = match is not None and match.status == "accepted" and match.trait_id is not None
-        if match is not None and match.status == "rejected":
-            message = f"trait name '{name}' was rejected in the decisions file"
-        else:
-            message = _unmatched_message(name, match)
-        rows.append(
-            {
-                "trait_id": match.trait_id if accepted else None,
-                "status": match.status if match else "review",
-                "method": match.method if match else "unmatched",
-                "score": match.score if match else np.nan,
-                "statistic_hint": match.statistic_hint if match else None,
-                "unit_hint": match.unit_hint if match else None,
-                "role": plan.roles.get(name),
-                "message": message,
-            }
-        )
-    return pd.DataFrame(
-        rows,
-        columns=[
-            "trait_id",
-            "status",
-            "method",
-            "score",
-            "statistic_hint",
-            "unit_hint",
-            "role",
-            "message",
-        ],
-    )
-
-
-def _trait_table(used: list, vocabulary: Vocabulary, level: str) -> pd.DataFrame:
-    """One row per trait id met in the batch (None included): facts from the vocabulary."""
-    rows = []
-    for trait_id in used:
-        term = vocabulary.terms.get(trait_id) if isinstance(trait_id, str) else None
-        if term is None:
-            rows.append(
-                {
-                    "kind": "",
-                    "unit": None,
-                    "unit_text": None,
-                    "ucum": None,
-                    "role": None,
-                    "rate": False,
-                    "plausible_min": -np.inf,
-                    "plausible_max": np.inf,
-                    "level_ok": True,
-                }
-            )
-            continue
-        unit_text, ucum = _unit_texts(term.unit)
-        low, high = term.plausible if term.plausible else (-np.inf, np.inf)
-        rows.append(
-            {
-                "kind": term.kind, "unit": term.unit, "unit_text": unit_text, "ucum": ucum, "role": term.role,
-                "rate": bool(term.rate), "plausible_min": float(low), "plausible_max": float(high),
-                "level_ok": level in term.levels,
-            }
-        )  # fmt: skip
-    return pd.DataFrame(
-        rows,
-        columns=[
-            "kind",
-            "unit",
-            "unit_text",
-            "ucum",
-            "role",
-            "rate",
-            "plausible_min",
-            "plausible_max",
-            "level_ok",
-        ],
-    )
-
-
-def _unit_texts(unit: str | None) -> tuple[str | None, str | None]:
-    """The canonical unit as pint text and as a UCUM code (None for unitless kinds)."""
-    if unit is None:
-        return None, None
-    from harmonize.ucum import to_ucum
-
-    return units.format_unit(unit), to_ucum(unit)
 
 
 def _measurement_temperature(

@@ -34,6 +34,7 @@ from harmonize.ingest import (
     check_declared_traits,
     read_source,
 )
+from harmonize.lookup_tables import unit_texts  # the same unit texts the values carry
 from harmonize.package import PackageInfo, ResourceWriter, write_package
 from harmonize.package_validate import ValidationResult, validate_package
 from harmonize.project import Mapping, Project
@@ -233,12 +234,11 @@ def _concat(frames: list[pd.DataFrame], resource: tables.Resource) -> pd.DataFra
 
 
 def _trait_rows(vocabulary: Vocabulary, used: list[str]) -> pd.DataFrame:
-    from harmonize.assemble import _unit_texts  # the same unit texts the values carry
 
     rows = []
     for trait_id in used:
         term = vocabulary.terms[trait_id]
-        unit_text, ucum = _unit_texts(term.unit)
+        unit_text, ucum = unit_texts(term.unit)
         rows.append(
             {
                 "trait_id": term.id,
