@@ -127,7 +127,7 @@ def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.
             "source_row": chosen["source_row"].to_numpy(),
             "column": chosen["column"].to_numpy(),
             "original_name": chosen["original_name"].to_numpy(),
-            "raw_value": chosen["raw_value"].to_numpy(),
+            "raw_value": _excerpt(chosen["raw_value"]),
             "raw_unit": chosen["raw_unit"].to_numpy(),
             "reason": np.asarray(reason, dtype=object)[mask] if np.ndim(reason) else str(reason),
             "message": np.asarray(message, dtype=object)[mask] if np.ndim(message) else message,
@@ -543,3 +543,19 @@ def _measurement_temperature(
         f"measurement temperature '{r}' in column '{spec.column}' is not a number" for r in raw
     ]
     return celsius, reasons
+
+
+RAW_EXCERPT_CHARS = 200
+
+
+def _excerpt(raw: pd.Series) -> np.ndarray:
+    """Raw cells as written, cut to an excerpt: a huge rejected cell must not bloat the package."""
+    out = raw.to_numpy(dtype=object)
+    lengths = raw.astype(object).str.len()
+    long = (lengths > RAW_EXCERPT_CHARS).fillna(False).to_numpy(dtype=bool)
+    if long.any():
+        out = out.copy()
+        cut = raw[long].astype(str).str.slice(0, RAW_EXCERPT_CHARS)
+        sizes = lengths[long].astype(int).astype(str)
+        out[long] = (cut + "… (" + sizes + " characters)").to_numpy(dtype=object)
+    return out

@@ -186,3 +186,12 @@ def test_bad_cell_is_rejected_with_row_column_and_reason(tmp_path: Path, case: C
     assert hit["message"].str.len().min() > 10  # a message a person can act on
     # nothing lost: every cell is written, rejected or empty
     assert all(a.balanced for a in accounts)
+
+
+def test_oversized_cell_is_kept_as_an_excerpt(tmp_path: Path) -> None:
+    # regression: a huge rejected cell used to be copied whole into rejects.raw_value
+    case = next(c for c in CASES if c.reason is RejectReason.CELL_TOO_LARGE)
+    frames, _, _ = build_tables(load_project(make_project(tmp_path, case)))
+    hit = frames["rejects"][frames["rejects"]["reason"] == RejectReason.CELL_TOO_LARGE.value]
+    raw = hit["raw_value"].iloc[0]
+    assert len(raw) < 300 and raw.endswith("(300 characters)")
