@@ -22,8 +22,8 @@ from typing import Any
 
 import yaml
 
+from harmonize.config_files import YAML_MAX_BYTES, parse_yaml
 from harmonize.errors import VocabularyError
-from harmonize.project import YAML_MAX_BYTES, parse_yaml
 
 ROLES = ("parameter", "threshold", "structure", "estimation", "forcing", "descriptive")
 KINDS = ("quantity", "count", "category", "text")
