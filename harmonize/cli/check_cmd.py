@@ -10,8 +10,7 @@ import click
 
 from harmonize.check import GROUP_BY, CheckResult, findings_document
 from harmonize.check_sources import TableSpec, check_package, check_table
-from harmonize.errors import ConfigError
-from harmonize.project import ReadOptions
+from harmonize.cli.options import column_pairs, make_read_options, read_options, text_table
 from harmonize.report_html import render_report
 from harmonize.vocab import load_vocabulary
 
@@ -22,30 +21,6 @@ CHECK_EXIT_CODES = {
     3: "bad input: the package or table cannot be read, or an option names a missing column",
 }
 MAX_ROWS_PRINTED = 40
-
-
-def _split(items: tuple[str, ...], option: str) -> tuple[dict[str, str], str | None]:
-    """COLUMN=VALUE pairs, and at most one bare VALUE (for the whole of a long table)."""
-    pairs, whole = {}, None
-    for item in items:
-        column, sep, value = item.rpartition("=")
-        if sep and column and value:
-            pairs[column] = value
-        elif not sep and whole is None:
-            whole = item
-        else:
-            raise ConfigError(
-                f"{option} expects COLUMN=VALUE (or one VALUE for a long table), got '{item}'"
-            )
-    return pairs, whole
-
-
-def _table(header: list[str], rows: list[list[str]]) -> list[str]:
-    widths = [max(len(str(c)) for c in column) for column in zip(header, *rows, strict=False)]
-    lines = ["  ".join(str(h).ljust(w) for h, w in zip(header, widths, strict=True))]
-    lines.append("  ".join("-" * w for w in widths))
-    lines += ["  ".join(str(c).ljust(w) for c, w in zip(row, widths, strict=True)) for row in rows]
-    return lines
 
 
 def summary_lines(result: CheckResult) -> list[str]:
@@ -63,8 +38,10 @@ def summary_lines(result: CheckResult) -> list[str]:
         ]  # fmt: skip
         lines += [
             "",
-            *_table(
-                ["severity", "finding", "trait", "group", "values", "factor", "confidence"], rows
+            *text_table(
+                ["severity", "finding", "trait", "group", "values", "factor", "confidence"],
+                rows,
+                numbers_right=False,
             ),
         ]
         if len(result.findings) > MAX_ROWS_PRINTED:
@@ -75,7 +52,11 @@ def summary_lines(result: CheckResult) -> list[str]:
         lines += ["", *[f"{f.trait} / {f.group}: {f.message}" for f in suspects[:10]]]
     lines += [
         "",
-        *_table(["rows and cells", "count"], [[w, c] for w, c in result.accounting.lines]),
+        *text_table(
+            ["rows and cells", "count"],
+            [[w, c] for w, c in result.accounting.lines],
+            numbers_right=False,
+        ),
     ]
     lines.append(f"adds up: {'yes' if result.accounting.balanced else 'NO'}")
     return lines
@@ -127,23 +108,15 @@ def _exit_codes_epilog() -> str:
 @click.option(
     "--ignore", multiple=True, metavar="COLUMN", help="Raw table: column to leave out (repeatable)."
 )
-@click.option("--delimiter", help="Field delimiter (default: ',' for .csv, tab for .tsv).")
-@click.option("--decimal", type=click.Choice([".", ","]), default=".", show_default=True)
-@click.option("--encoding", default="utf-8", show_default=True)
-@click.option(
-    "--missing",
-    multiple=True,
-    metavar="TOKEN",
-    help="Missing-value token (repeatable; default '' and NA).",
-)
+@read_options
 @click.option(
     "--vocabulary",
     type=click.Path(path_type=Path),
     help="Vocabulary folder (default: the bundled one).",
 )
 def check(target: Path, group_by: str, html_path: Path | None, json_path: Path | None, taxon, source,
-          value_column, trait_column, unit_column, traits, units, ignore, delimiter, decimal, encoding,
-          missing, vocabulary) -> None:  # fmt: skip
+          value_column, trait_column, unit_column, traits, units, ignore, delimiter, decimal, thousands,
+          encoding, missing, vocabulary) -> None:  # fmt: skip
     """Look for unit mistakes in TARGET: a built package folder (or its datapackage.json) or
     one raw table (CSV, TSV, Parquet). Nothing is changed; findings are printed, and written
     as JSON and HTML on request."""
@@ -151,14 +124,13 @@ def check(target: Path, group_by: str, html_path: Path | None, json_path: Path |
     if (folder / "datapackage.json").is_file():
         result = check_package(folder, group_by)
     else:
-        trait_of, one_trait = _split(traits, "--trait")
-        unit_of, one_unit = _split(units, "--unit")
+        trait_of, one_trait = column_pairs(traits, "--trait", allow_bare=True)
+        unit_of, one_unit = column_pairs(units, "--unit", allow_bare=True)
         spec = TableSpec(
             target, taxon=taxon, source=source, value_column=value_column,
             trait_column=trait_column, unit_column=unit_column, trait=one_trait, unit=one_unit,
             traits=trait_of, units=unit_of, ignore=tuple(ignore),
-            read=ReadOptions(delimiter=delimiter, decimal=decimal, encoding=encoding,
-                             missing=tuple(missing) if missing else ("", "NA")),
+            read=make_read_options(delimiter, decimal, thousands, encoding, missing),
         )  # fmt: skip
         result = check_table(spec, group_by, vocabulary=load_vocabulary(vocabulary))
     for line in summary_lines(result):

@@ -8,25 +8,15 @@ from pathlib import Path
 import click
 
 from harmonize.build import build_project
+from harmonize.cli.options import column_pairs, make_read_options, read_options
 from harmonize.cli.render import exit_code, progress_printer, summary_lines
 from harmonize.errors import ConfigError
 from harmonize.project import (
     LongColumns,
-    ReadOptions,
     TemperatureSpec,
     TraitColumn,
     single_file_project,
 )
-
-
-def _pairs(values: tuple[str, ...], option: str) -> dict[str, str]:
-    out = {}
-    for item in values:
-        column, sep, value = item.rpartition("=")
-        if not sep or not column or not value:
-            raise ConfigError(f"{option} expects COLUMN=VALUE, got '{item}'")
-        out[column] = value
-    return out
 
 
 @click.command()
@@ -81,16 +71,7 @@ def _pairs(values: tuple[str, ...], option: str) -> dict[str, str]:
 @click.option("--value-column", help="Long table: column holding values.")
 @click.option("--unit-column", help="Long table: column holding units.")
 @click.option("--statistic-column", help="Long table: column holding the statistic of each row.")
-@click.option("--delimiter", help="Field delimiter (default: ',' for .csv, tab for .tsv).")
-@click.option("--decimal", type=click.Choice([".", ","]), default=".", show_default=True)
-@click.option("--thousands", help="Thousands separator, if the table uses one.")
-@click.option("--encoding", default="utf-8", show_default=True)
-@click.option(
-    "--missing",
-    multiple=True,
-    metavar="TOKEN",
-    help="Missing-value token (repeatable; default '' and NA).",
-)
+@read_options
 @click.option(
     "--output",
     "-o",
@@ -118,9 +99,9 @@ def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, dat
         if column
     }  # fmt: skip
     unit_of, trait_of, statistic_of = (
-        _pairs(units, "--unit"),
-        _pairs(traits, "--trait"),
-        _pairs(statistics, "--statistic"),
+        column_pairs(units, "--unit")[0],
+        column_pairs(traits, "--trait")[0],
+        column_pairs(statistics, "--statistic")[0],
     )
     declared = {}
     for column in sorted(set(unit_of) | set(trait_of) | set(statistic_of)):
@@ -149,13 +130,7 @@ def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, dat
         traits=declared,
         columns=columns,
         ignore=tuple(ignore),
-        read=ReadOptions(
-            delimiter=delimiter,
-            decimal=decimal,
-            thousands=thousands,
-            encoding=encoding,
-            missing=tuple(missing) if missing else ("", "NA"),
-        ),  # fmt: skip
+        read=make_read_options(delimiter, decimal, thousands, encoding, missing),
         temperature=spec,
         output_format=output_format,
     )

@@ -9,20 +9,7 @@ import click
 
 from harmonize.build import BuildReport
 from harmonize.changes import report_text
-
-
-def _table(header: list[str], rows: list[list[str]]) -> list[str]:
-    widths = [max(len(str(c)) for c in column) for column in zip(header, *rows, strict=False)]
-    line = "  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True))
-    out = [line, "  ".join("-" * w for w in widths)]
-    for row in rows:
-        out.append(
-            "  ".join(
-                str(c).rjust(w) if i else str(c).ljust(w)
-                for i, (c, w) in enumerate(zip(row, widths, strict=True))
-            )
-        )
-    return out
+from harmonize.cli.options import text_table
 
 
 def _sd_origins(report: BuildReport) -> str:
@@ -55,7 +42,9 @@ def summary_lines(report: BuildReport) -> list[str]:
         ]
         for a in report.accounts
     ]
-    lines += _table(["source", "rows", "cells", "written", "rejected", "empty", "balanced"], rows)
+    lines += text_table(
+        ["source", "rows", "cells", "written", "rejected", "empty", "balanced"], rows
+    )
     lines += [
         "",
         f"individual values:    {report.individual_values}",
@@ -67,7 +56,7 @@ def summary_lines(report: BuildReport) -> list[str]:
     if report.rejects_by_reason:
         lines += [
             "",
-            *_table(
+            *text_table(
                 ["reject reason", "cells"], [[k, v] for k, v in report.rejects_by_reason.items()]
             ),
         ]
