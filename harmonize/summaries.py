@@ -62,13 +62,20 @@ def _joined(series: pd.Series) -> str | None:
     return "; ".join(parts) if parts else None
 
 
-def _flag_union(series: pd.Series) -> str | None:
+def _union_of_flags(*texts: object) -> str | None:
+    """Semicolon-joined flags of several flag texts, each flag once, in order of appearance."""
     parts: list[str] = []
-    for text in series.dropna():
+    for text in texts:
+        if text is None or pd.isna(text):
+            continue
         for flag in str(text).split(";"):
             if flag and flag not in parts:
                 parts.append(flag)
     return ";".join(parts) if parts else None
+
+
+def _flag_union(series: pd.Series) -> str | None:
+    return _union_of_flags(*series.dropna())
 
 
 def _rejects(cells: pd.DataFrame, reason: pd.Series, message: pd.Series) -> pd.DataFrame:
@@ -154,8 +161,7 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
     good = summary[summary["reason"].isna()].copy()
     cells_written = int(numbers["group"].isin(good.index).sum())
     good["flags"] = [
-        _flag_union(pd.Series([a, b]))
-        for a, b in zip(good["cell_flags"], good["flags"], strict=True)
+        _union_of_flags(a, b) for a, b in zip(good["cell_flags"], good["flags"], strict=True)
     ]
     good["value_text"] = None
 
@@ -205,7 +211,7 @@ def combine_subgroups(summaries: pd.DataFrame, split_by: tuple[str, ...]) -> pd.
     merged["flags"] = parts["flags"].agg(_flag_union).to_numpy()
     sizes = parts.size().to_numpy()
     merged["flags"] = [
-        _flag_union(pd.Series([f, f"combined-groups:{'+'.join(split_by)}" if k > 1 else None]))
+        _union_of_flags(f, f"combined-groups:{'+'.join(split_by)}" if k > 1 else None)
         for f, k in zip(merged["flags"], sizes, strict=True)
     ]
     pooled = sizes > 1
