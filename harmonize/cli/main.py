@@ -76,7 +76,10 @@ def main(argv: list[str] | None = None) -> None:
     except SystemExit:
         raise
     except (MemoryError, RecursionError) as error:
-        click.echo(f"error: out of resources ({type(error).__name__}); see limits in harmonize.yaml", err=True)
+        click.echo(
+            f"error: out of resources ({type(error).__name__}); see limits in harmonize.yaml",
+            err=True,
+        )
         sys.exit(4)
     except OSError as error:  # disk full, permission denied: the file system's own words are clear
         if debug:

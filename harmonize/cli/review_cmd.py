@@ -43,7 +43,9 @@ def propose(project: Path, sheet: Path, fuzzy: bool) -> None:
     click.echo(
         "fill 'decision' with a trait id, 'accept' (take the proposal) or 'reject', then run `harmonize review apply`"
     )
-    click.echo("to change an earlier decision write 'replace:<trait id>', 'replace:accept' or 'replace:reject'")
+    click.echo(
+        "to change an earlier decision write 'replace:<trait id>', 'replace:accept' or 'replace:reject'"
+    )
 
 
 @review.command()
