@@ -20,8 +20,6 @@ from functools import lru_cache
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
-from scipy import integrate
-from scipy import stats as scipy_stats
 
 from harmonize.errors import ConfigError, RejectReason
 
@@ -123,6 +121,8 @@ def sd_from_ci(
     """SD from a confidence interval of a mean, using the t distribution for every n."""
     # Cochrane Handbook v6.4 6.5.2.2: SD = sqrt(N) * (upper - lower) / (2 * t_{(1+level)/2, N-1}).
     # The Handbook uses z (3.92 for 95 %) for large samples; t converges to z, so we keep t.
+    from scipy import stats as scipy_stats  # imported on use: scipy takes ~0.7 s to import
+
     lower, upper, n, level = map(_float_array, (lower, upper, n, level))
     with np.errstate(invalid="ignore", divide="ignore"):
         t_quantile = scipy_stats.t.ppf((1.0 + level) / 2.0, n - 1.0)
@@ -140,6 +140,9 @@ def _expected_normal_ranges() -> np.ndarray:
     """E[range] of n standard-normal values for n = 0..50 (0 and 1 are 0)."""
     # E[range] = integral over x of 1 - Phi(x)^n - (1 - Phi(x))^n (order statistics theory),
     # integrated once per process on a fine grid; beyond |x| = 12 the integrand is < 1e-30.
+    from scipy import integrate
+    from scipy import stats as scipy_stats
+
     x = np.linspace(-12.0, 12.0, 24_001)
     n = np.arange(WAN_EXACT_RANGE_MAX_N + 1, dtype=float)[:, None]
     lower, upper = scipy_stats.norm.cdf(x), scipy_stats.norm.sf(x)
@@ -152,6 +155,8 @@ def _expected_normal_ranges() -> np.ndarray:
 def _wan_range_divisor(n: np.ndarray) -> np.ndarray:
     # Wan et al. 2014, BMC Med Res Methodol 14:135: xi(n) from Table 1 for n <= 50, else eq. 7
     # xi(n) = 2 * Phi^-1((n-0.375)/(n+0.25))
+    from scipy import stats as scipy_stats
+
     with np.errstate(invalid="ignore"):
         approximate = 2.0 * scipy_stats.norm.ppf((n - 0.375) / (n + 0.25))
     small = (n >= 2) & (n <= WAN_EXACT_RANGE_MAX_N) & (n == np.floor(n))
@@ -161,6 +166,8 @@ def _wan_range_divisor(n: np.ndarray) -> np.ndarray:
 
 def _wan_iqr_divisor(n: np.ndarray) -> np.ndarray:
     # Wan et al. 2014 eq. 16: eta(n) = 2 * Phi^-1((0.75n-0.125)/(n+0.25))
+    from scipy import stats as scipy_stats
+
     with np.errstate(invalid="ignore"):
         return 2.0 * scipy_stats.norm.ppf((0.75 * n - 0.125) / (n + 0.25))
 

@@ -11,7 +11,6 @@ import click
 from harmonize.check import GROUP_BY, CheckResult, findings_document
 from harmonize.check_sources import TableSpec, check_package, check_table
 from harmonize.cli.options import column_pairs, make_read_options, read_options, text_table
-from harmonize.report_html import render_report
 from harmonize.vocab import load_vocabulary
 
 CHECK_EXIT_CODES = {
@@ -141,6 +140,8 @@ def check(target: Path, group_by: str, html_path: Path | None, json_path: Path |
         )
         click.echo(f"findings written to {json_path}")
     if html_path is not None:
+        from harmonize.report_html import render_report  # matplotlib: imported on use
+
         html_path.write_text(render_report(result), encoding="utf-8")
         click.echo(f"report written to {html_path}")
     sys.exit(1 if result.alarming else 0)
