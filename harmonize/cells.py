@@ -17,6 +17,7 @@ import pandas as pd
 
 from harmonize.errors import SourceReadError
 from harmonize.project import Limits, Mapping
+from harmonize.text_columns import Coded, concat
 
 CONTEXT_COLUMNS = {
     "taxon": "taxon_verbatim",
@@ -57,31 +58,27 @@ def trait_columns(mapping: Mapping, header: list[str]) -> list[str]:
 # ---------------------------------------------------------------- reshaping
 
 
-def _clean_text(values: pd.Series, missing: set[str] | None = None) -> np.ndarray:
-    """Stripped text as an object array, None where blank or a missing-value token.
-
-    Worked out once per distinct cell text (a site or species column repeats a few names
-    millions of times), then taken per cell by integer codes.
+def _clean_text(values: pd.Series, missing: set[str] | None = None) -> Coded:
+    """Stripped text, None where blank or a missing-value token, as codes into the distinct
+    texts: worked out once per distinct cell text (a site or species column repeats a few
+    names millions of times) and carried as codes, never as a Python string per cell.
     """
-    codes, uniques = pd.factorize(values, use_na_sentinel=True)
-    texts = pd.Series(uniques)
-    if texts.dtype == object:  # readers that hand over Python objects (numbers, text)
-        texts = texts.map(lambda v: v if v is None else str(v))
-    stripped = texts.astype("str").str.strip()
+    coded = Coded.of(values)
+    texts = pd.Series(coded.texts, dtype=object)
+    stripped = texts.map(lambda v: v if v is None else str(v).strip())
     blank = stripped.isna() | (stripped == "")
     if missing:
         blank |= stripped.isin(missing)
-    cleaned = np.append(np.where(blank.to_numpy(), None, stripped.to_numpy(dtype=object)), None)
-    return cleaned[codes]  # code -1 (a missing cell) takes the trailing None
+    return coded.map(np.where(blank.to_numpy(), None, stripped.to_numpy(dtype=object)))
 
 
-def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarray]:
-    out: dict[str, np.ndarray] = {}
+def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, Coded | np.ndarray]:
+    out: dict[str, Coded | np.ndarray] = {}
     missing = set(mapping.read.missing)
     for key, target in CONTEXT_COLUMNS.items():
         column = mapping.context.get(key)
         if column is None:
-            out[target] = np.full(len(frame), None, dtype=object)
+            out[target] = Coded.constant(None, len(frame))
             continue
         out[target] = _clean_text(frame[column], missing)
     if mapping.temperature and mapping.temperature.column:
@@ -91,74 +88,76 @@ def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, np.ndarr
     return out
 
 
-def _cell_frame(columns: dict[str, np.ndarray | pd.Series], length: int) -> pd.DataFrame:
-    """Cells as a frame without converting text back and forth: object arrays stay object
-    (pandas would otherwise re-encode every one as Arrow strings), source columns stay as read."""
+def _cell_frame(columns: dict[str, np.ndarray | pd.Series | Coded], length: int) -> pd.DataFrame:
+    """Cells as a frame without converting text back and forth: coded text becomes a pandas
+    categorical (codes, never a string per cell), object arrays stay object, source columns
+    stay as read (Arrow-backed text)."""
     index = pd.RangeIndex(length)
-    return pd.DataFrame(
-        {
-            name: (
-                pd.Series(values.to_numpy(), index=index, dtype=values.dtype)
-                if isinstance(values, pd.Series)
-                else pd.Series(values, index=index, dtype=values.dtype)
-            )
-            for name, values in columns.items()
-        },
-        index=index,
-    )
+    out = {}
+    for name, values in columns.items():
+        if isinstance(values, Coded):
+            out[name] = pd.Series(values.categorical(), index=index)
+        elif isinstance(values, pd.Series):
+            out[name] = pd.Series(values.to_numpy(), index=index, dtype=values.dtype)
+        else:
+            out[name] = pd.Series(values, index=index, dtype=values.dtype)
+    return pd.DataFrame(out, index=index)
 
 
 def _wide_cells(
     mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int
 ) -> pd.DataFrame:
-    rows = np.arange(first_row, first_row + len(frame), dtype=np.int64)
-    context = _context_arrays(mapping, frame)
-    pieces = []
-    for column in columns:
-        declared = mapping.trait_column(column)
-        piece = {
-            "source_row": rows,
-            "column": np.full(len(frame), column, dtype=object),
-            "original_name": np.full(len(frame), column, dtype=object),
-            "raw_value": frame[column],
-            "raw_unit": np.full(len(frame), declared.unit if declared else None, dtype=object),
-            "statistic": np.full(
-                len(frame), declared.statistic if declared else None, dtype=object
-            ),
-            **context,
-        }
-        pieces.append(_cell_frame(piece, len(frame)))
-    if not pieces:
+    if not columns:
         return pd.DataFrame({name: pd.Series([], dtype=object) for name in CELL_COLUMNS})
-    return pd.concat(pieces, ignore_index=True)[list(CELL_COLUMNS)]
+    count = len(frame)
+    context = _context_arrays(mapping, frame)
+    declared = [mapping.trait_column(column) for column in columns]
+    names = Coded(
+        np.repeat(np.arange(len(columns), dtype=np.int32), count), np.array(columns, dtype=object)
+    )
+    pieces = {
+        "source_row": np.tile(
+            np.arange(first_row, first_row + count, dtype=np.int64), len(columns)
+        ),
+        "column": names,
+        "original_name": names,
+        "raw_value": pd.concat([frame[c] for c in columns], ignore_index=True),
+        "raw_unit": concat([Coded.constant(d.unit if d else None, count) for d in declared]),
+        "statistic": concat([Coded.constant(d.statistic if d else None, count) for d in declared]),
+    }
+    for key, values in context.items():  # the same row context for every trait column
+        if isinstance(values, Coded):
+            pieces[key] = Coded(np.tile(values.codes, len(columns)), values.texts)
+        else:
+            pieces[key] = np.tile(values, len(columns))
+    return _cell_frame(pieces, count * len(columns))[list(CELL_COLUMNS)]
 
 
-def _stripped(values: pd.Series) -> np.ndarray:
+def _stripped(values: pd.Series) -> Coded:
     """Stripped text (missing cells stay missing), once per distinct text."""
-    codes, uniques = pd.factorize(values, use_na_sentinel=True)
-    texts = [v.strip() if isinstance(v, str) else v for v in np.asarray(uniques, dtype=object)]
-    return np.array([*texts, None], dtype=object)[codes]
+    coded = Coded.of(values)
+    return coded.map([v.strip() if isinstance(v, str) else v for v in coded.texts])
 
 
 def long_trait_names(mapping: Mapping, frame: pd.DataFrame) -> np.ndarray:
     """A long table's trait names as its cells carry them (stripped; missing stays missing)."""
     assert mapping.columns is not None
-    return _stripped(frame[mapping.columns.trait])
+    return _stripped(frame[mapping.columns.trait]).values()
 
 
 def _long_cells(mapping: Mapping, frame: pd.DataFrame, first_row: int) -> pd.DataFrame:
     spec = mapping.columns
     assert spec is not None  # checked when the mapping was loaded
     context = _context_arrays(mapping, frame)
-    none = np.full(len(frame), None, dtype=object)
+    none = Coded.constant(None, len(frame))
     cells = _cell_frame(
         {
             "source_row": np.arange(first_row, first_row + len(frame), dtype=np.int64),
-            "column": np.full(len(frame), spec.value, dtype=object),
-            "original_name": long_trait_names(mapping, frame),
+            "column": Coded.constant(spec.value, len(frame)),
+            "original_name": _stripped(frame[spec.trait]),
             "raw_value": frame[spec.value],
-            "raw_unit": frame[spec.unit] if spec.unit else none,
-            "statistic": frame[spec.statistic] if spec.statistic else none,
+            "raw_unit": Coded.of(frame[spec.unit]) if spec.unit else none,
+            "statistic": Coded.of(frame[spec.statistic]) if spec.statistic else none,
             **context,
             **({"n_raw": frame[spec.n]} if spec.n else {}),
         },
