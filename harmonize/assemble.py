@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from harmonize import lookup_tables, units, values
 from harmonize.errors import RejectReason
@@ -20,6 +21,7 @@ from harmonize.match import NameMatch
 from harmonize.project import STATISTICS, Mapping
 from harmonize.taxa import clean_taxon_names
 from harmonize.temperature import TemperatureCorrection, correct_rates, temperature_problems
+from harmonize.text_columns import Coded, choose, column_to_arrow, objects_to_arrow
 from harmonize.vocab import Vocabulary
 
 # Statistic spellings met in long tables and column names -> our statistic codes.
@@ -43,6 +45,7 @@ STATISTIC_CODES = STATISTICS
 LOCATION_STATISTICS = ("value", "mean", "min", "max", "median", "q1", "q3", "ci_low", "ci_high")
 SPREAD_STATISTICS = ("sd", "se")
 
+UNIT_ORIGINS = ("mapping", "cell", "name-hint", "none")  # the last: no unit, or not a number
 INDIVIDUAL_OUTPUT = (
     "source_row", "taxon_verbatim", "taxon", "taxon_qualifier", "sex", "life_stage", "site", "date",
     "individual_id", "trait_id", "role", "unit", "ucum", "value", "value_text", "qualifier",
@@ -72,8 +75,8 @@ class BatchResult:
     empty: int
 
 
-def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> np.ndarray:
-    """Join per-row flags with ';', skipping blanks. A part is an array of texts ('' or None
+def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> Coded:
+    """Join per-row flags with ';', skipping blanks (None where a row has none). A part is an array of texts ('' or None
     for no flag) or a (mask, text) pair: the text where the mask is true.
 
     Each part has few distinct texts, so rows are coded by their combination of texts and the
@@ -97,20 +100,17 @@ def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> np.ndarray:
         # re-factorise after each part so the combined code stays small
         combined, _ = pd.factorize(combined * len(uniques) + codes)
     _, first, inverse = np.unique(combined, return_index=True, return_inverse=True)
-    joined = np.array(
-        [
-            ";".join(
-                t
-                for t in (
-                    text[codes[row]] for text, codes in zip(texts, codes_per_part, strict=True)
-                )
-                if t
-            )
-            for row in first
-        ],
-        dtype=object,
+    joined = [
+        ";".join(
+            t
+            for t in (text[codes[row]] for text, codes in zip(texts, codes_per_part, strict=True))
+            if t
+        )
+        for row in first
+    ]
+    return Coded(
+        inverse.reshape(-1).astype(np.int32), np.array([j or None for j in joined], dtype=object)
     )
-    return joined[inverse.reshape(-1)] if count else np.array([], dtype=object)
 
 
 def _labelled(prefix: str, values: np.ndarray) -> np.ndarray:
@@ -201,9 +201,10 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     fate.open &= ~empty
 
     # 2. names: one lookup table per distinct name, taken per cell by integer codes
-    names = cells["original_name"].astype(object).fillna("")
-    name_codes, distinct = pd.factorize(names)
-    name_table = lookup_tables.name_table(list(distinct), plan)
+    name_coded = Coded.of(cells["original_name"])
+    name_coded = name_coded.map([t if t is not None else "" for t in name_coded.texts])
+    name_codes = name_coded.codes
+    name_table = lookup_tables.name_table(list(name_coded.texts), plan)
     per_name = {
         column: name_table[column].to_numpy(dtype=object)[name_codes]
         for column in name_table.columns
@@ -213,17 +214,28 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     unmatched = pd.isna(trait_id)
     fate.reject(unmatched, RejectReason.UNMATCHED_NAME, per_name["message"])
 
-    # per-trait facts, taken per cell by integer codes
-    trait_codes, used_traits = pd.factorize(
-        pd.Series(trait_id, dtype=object), use_na_sentinel=False
-    )
-    trait_table = lookup_tables.trait_table(list(used_traits), vocabulary, mapping.level)
+    # per-trait facts: a trait follows from the name, so they are looked up once per name too
+    name_traits = lookup_tables.trait_table(list(name_table["trait_id"]), vocabulary, mapping.level)
     per_trait = {
-        column: trait_table[column].to_numpy()[trait_codes] for column in trait_table.columns
+        column: name_traits[column].to_numpy()[name_codes] for column in name_traits.columns
     }
-    terms = {t: vocabulary.terms[t] for t in used_traits if isinstance(t, str)}
+    used_traits = [
+        t for t in pd.unique(name_table["trait_id"].to_numpy(dtype=object)) if isinstance(t, str)
+    ]
+    terms = {t: vocabulary.terms[t] for t in used_traits}
     kind = per_trait["kind"]
     canonical = per_trait["unit"]
+    by_name = {  # output columns that follow from the name alone
+        "trait_id": name_coded.map(name_table["trait_id"].to_numpy(dtype=object)),
+        "match_method": name_coded.map(name_table["method"].to_numpy(dtype=object)),
+        "unit": name_coded.map(name_traits["unit_text"].to_numpy(dtype=object)),
+        "ucum": name_coded.map(name_traits["ucum"].to_numpy(dtype=object)),
+        "role": name_coded.map(
+            np.where(pd.notna(name_table["role"]), name_table["role"], name_traits["role"]).astype(
+                object
+            )
+        ),
+    }
 
     # 3. level allowed for the trait
     level_bad = per_trait["level_ok"] == False  # noqa: E712 - elementwise on an object array
@@ -309,12 +321,15 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     fate.reject(parse_failed, parsed.reason, parsed.message)
 
     # 8. units: effective unit text and where it came from
-    declared_unit = _blank_to_none(cells["raw_unit"])
-    cell_unit = _blank_to_none(pd.Series(parsed.unit_in_cell, dtype=object))
+    declared_coded = _blank_to_none(cells["raw_unit"])
+    cell_coded = _blank_to_none(pd.Series(parsed.unit_in_cell, dtype=object))
+    hint_coded = name_coded.map(name_table["unit_hint"].to_numpy(dtype=object))
+    declared_unit, cell_unit = declared_coded.values(), cell_coded.values()
     hint_unit = per_name["unit_hint"]
-    unit_text = np.where(
-        pd.notna(declared_unit), declared_unit, np.where(pd.notna(cell_unit), cell_unit, hint_unit)
+    unit_coded = choose(
+        [pd.notna(declared_unit), pd.notna(cell_unit)], [declared_coded, cell_coded], hint_coded
     )
+    unit_text = unit_coded.values()
     unit_origin = np.where(
         pd.notna(declared_unit),
         "mapping",
@@ -429,52 +444,44 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     )
 
     written = np.flatnonzero(fate.open)
-    taxa = clean_taxon_names(cells["taxon_verbatim"], plan.taxon_synonyms)
-    match_method = per_name["method"]
-    match_score = per_name["score"].astype(float)
-    role = np.where(pd.notna(per_name["role"]), per_name["role"], per_trait["role"])
-    out = _rows_of(
-        written,
-        {
-            "source_row": cells["source_row"].to_numpy(),
-            "column": cells["column"].to_numpy(),
-            "taxon_verbatim": cells["taxon_verbatim"].to_numpy(),
-            "taxon": taxa["taxon"].to_numpy(),
-            "taxon_qualifier": taxa["taxon_qualifier"].to_numpy(),
-            "sex": cells["sex"].to_numpy(),
-            "life_stage": cells["life_stage"].to_numpy(),
-            "site": cells["site"].to_numpy(),
-            "date": cells["date"].to_numpy(),
-            "individual_id": cells["individual_id"].to_numpy(),
-            "trait_id": trait_id,
-            "role": role,
-            "unit": per_trait["unit_text"],
-            "ucum": per_trait["ucum"],
-            "value": np.where(numeric, converted, np.nan),
-            "value_as_measured": as_measured,
-            "correction_factor": correction_factor,
-            "value_text": text_values,
-            "qualifier": np.where(qualifier == "", None, qualifier),
-            "original_value": cells["raw_value"].to_numpy(),
-            "original_name": names.to_numpy(),
-            "original_unit": unit_text,
-            "unit_origin": np.where(numeric, unit_origin, "none"),
-            "match_method": match_method,
-            "match_score": match_score,
-            "measurement_temperature": temperature,
-            "temperature_correction": correction_label,
-            "flags": np.where(flags == "", None, flags),
-            "statistic": statistic,
-            "n_raw": cells["n_raw"].to_numpy(),
-        },
+    taxon_verbatim = Coded.of(cells["taxon_verbatim"])
+    taxa = clean_taxon_names(pd.Series(taxon_verbatim.texts, dtype=object), plan.taxon_synonyms)
+    origin_codes = np.select(
+        [numeric & (unit_origin == o) for o in UNIT_ORIGINS[:-1]],
+        list(range(len(UNIT_ORIGINS) - 1)),
+        len(UNIT_ORIGINS) - 1,
     )
-
+    columns = {
+        "source_row": cells["source_row"].to_numpy(),
+        "column": Coded.of(cells["column"]),
+        "taxon_verbatim": taxon_verbatim,
+        "taxon": taxon_verbatim.map(taxa["taxon"].to_numpy(dtype=object)),
+        "taxon_qualifier": taxon_verbatim.map(taxa["taxon_qualifier"].to_numpy(dtype=object)),
+        **{key: Coded.of(cells[key]) for key in ("sex", "life_stage", "site", "date")},
+        "individual_id": Coded.of(cells["individual_id"]),
+        **by_name,
+        "value": np.where(numeric, converted, np.nan),
+        "value_as_measured": as_measured,
+        "correction_factor": correction_factor,
+        "value_text": text_values,
+        "qualifier": np.where(qualifier == "", None, qualifier),
+        "original_value": cells["raw_value"],
+        "original_name": name_coded,
+        "original_unit": unit_coded,
+        "unit_origin": Coded(origin_codes.astype(np.int32), np.array(UNIT_ORIGINS, dtype=object)),
+        "match_score": per_name["score"].astype(float),
+        "measurement_temperature": temperature,
+        "temperature_correction": correction_label,
+        "flags": flags,
+    }
     if mapping.level == "individual":
-        individual = out.drop(columns=["statistic", "n_raw"])
-        statistic_cells = out.iloc[0:0]
+        individual = _table_of(written, columns)
+        statistic_cells = pd.DataFrame()
     else:
-        individual = out.iloc[0:0].drop(columns=["statistic", "n_raw"])
-        statistic_cells = out
+        individual = pa.table({})
+        columns["statistic"] = statistic
+        columns["n_raw"] = cells["n_raw"]
+        statistic_cells = _rows_of(written, columns)
     return BatchResult(
         individual=individual,
         statistic_cells=statistic_cells,
@@ -483,23 +490,49 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     )
 
 
-def _rows_of(rows: np.ndarray, columns: dict[str, np.ndarray]) -> pd.DataFrame:
-    """A frame of the given rows of each column, built without pandas re-encoding text:
-    object arrays stay object (they become Arrow strings once, when written)."""
+Column = np.ndarray | Coded | pd.Series
+
+
+def _rows_of(rows: np.ndarray, columns: dict[str, Column]) -> pd.DataFrame:
+    """A frame of the given rows of each column; text as Python objects (None for missing),
+    for the population summaries' pandas stage."""
     out = {}
     for name, column in columns.items():
-        taken = np.asarray(column)[rows]
+        if isinstance(column, Coded):
+            taken = column.take(rows).values()
+        elif isinstance(column, pd.Series):
+            taken = column.to_numpy(dtype=object)[rows]
+            taken = np.where(pd.isna(taken), None, taken)
+        else:
+            taken = np.asarray(column)[rows]
         if taken.dtype.kind in "US":  # numpy fixed-width text from np.where
             taken = taken.astype(object)
         out[name] = pd.Series(taken, dtype=taken.dtype)
     return pd.DataFrame(out)
 
 
-def _blank_to_none(series: pd.Series) -> np.ndarray:
+def _table_of(rows: np.ndarray, columns: dict[str, Column]) -> pa.Table:
+    """An Arrow table of the given rows of each column: numbers as they are, text by codes
+    (`text_columns`), never a Python string per cell."""
+    indices = pa.array(rows)
+    out = {}
+    for name, column in columns.items():
+        if isinstance(column, Coded):
+            out[name] = column.take(rows).arrow()
+        elif isinstance(column, pd.Series):
+            out[name] = column_to_arrow(column).take(indices)
+        elif column.dtype == object or column.dtype.kind in "US":
+            out[name] = objects_to_arrow(column[rows])
+        else:
+            out[name] = pa.array(column[rows], from_pandas=True)  # NaN: missing
+    return pa.table(out)
+
+
+def _blank_to_none(series: pd.Series) -> Coded:
     """Stripped text, None where blank; worked out once per distinct text."""
-    codes, uniques = pd.factorize(pd.Series(series, dtype=object), use_na_sentinel=True)
-    texts = [str(v).strip() for v in np.asarray(uniques, dtype=object)]
-    return np.array([t if t else None for t in texts] + [None], dtype=object)[codes]
+    coded = Coded.of(series)
+    texts = [str(v).strip() if v is not None else None for v in coded.texts]
+    return coded.map([t if t else None for t in texts])
 
 
 def _correction_for(plan: SourcePlan, term) -> TemperatureCorrection:

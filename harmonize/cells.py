@@ -14,6 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from harmonize.errors import SourceReadError
 from harmonize.project import Limits, Mapping
@@ -60,12 +62,22 @@ def trait_columns(mapping: Mapping, header: list[str]) -> list[str]:
 
 def _clean_text(values: pd.Series, missing: set[str] | None = None) -> Coded:
     """Stripped text, None where blank or a missing-value token, as codes into the distinct
-    texts: worked out once per distinct cell text (a site or species column repeats a few
-    names millions of times) and carried as codes, never as a Python string per cell.
-    """
+    texts: a site or species column repeats a few names millions of times, so cells carry
+    codes, never a Python string each. Arrow-backed text is cleaned by Arrow compute."""
+    if isinstance(values.dtype, pd.StringDtype | pd.ArrowDtype):
+        text = pa.array(values, from_pandas=True)
+        if isinstance(text, pa.ChunkedArray):
+            text = text.combine_chunks()
+        text = pc.utf8_trim_whitespace(text.cast(pa.string()))
+        blank = pc.equal(text, "")
+        if missing:
+            blank = pc.or_(blank, pc.is_in(text, value_set=pa.array(sorted(missing), pa.string())))
+        return Coded.of(pc.if_else(blank, pa.scalar(None, pa.string()), text))
+    # Python objects (numbers among text, as some readers hand them over): once per distinct
     coded = Coded.of(values)
-    texts = pd.Series(coded.texts, dtype=object)
-    stripped = texts.map(lambda v: v if v is None else str(v).strip())
+    stripped = pd.Series(coded.texts, dtype=object).map(
+        lambda v: v if v is None else str(v).strip()
+    )
     blank = stripped.isna() | (stripped == "")
     if missing:
         blank |= stripped.isin(missing)

@@ -18,18 +18,25 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from harmonize import sources, tables
 from harmonize.assemble import SourcePlan, assemble_batch
 from harmonize.cells import CellBatch
 from harmonize.errors import ConfigError
 from harmonize.match import MatchSettings, NameMatch, match_names, normalise_name
-from harmonize.package import ResourceWriter, prepare_frame
+from harmonize.package import ResourceWriter, frame_of_table, prepare_frame, prepare_table
 from harmonize.project import Mapping, Project
 from harmonize.review import read_decisions
-from harmonize.summaries import aggregate_individuals, record_ids, summarise_population_cells
+from harmonize.summaries import (
+    aggregate_individuals,
+    record_ids_of_table,
+    summarise_population_cells,
+)
 from harmonize.taxa import load_taxon_synonyms
 from harmonize.temperature import TemperatureCorrection
+from harmonize.text_columns import Coded
 from harmonize.vocab import Vocabulary, load_vocabulary
 
 Progress = Callable[[str, dict], None]
@@ -151,16 +158,27 @@ def learn_names(
         plan.names.update(match_names(to_match, plan.vocabulary, settings.matching, decisions))
 
 
-def individual_rows(frame: pd.DataFrame, source_id: str) -> pd.DataFrame:
-    """A batch's individual values as output rows: in source-row order (cells of one row in
-    the order given), with source id and record id, without the internal column name."""
-    rows = frame["source_row"].to_numpy()
+def individual_rows(table: pa.Table, source_id: str) -> pa.Table:
+    """A batch's individual values as output rows, prepared for writing: in source-row order
+    (cells of one row in the order given), with source id and record id, without the internal
+    column name."""
+    rows = table["source_row"].to_numpy()
     if len(rows) > 1 and (np.diff(rows) < 0).any():
-        frame = frame.iloc[np.argsort(rows, kind="stable")]
-    frame = frame.reset_index(drop=True)
-    frame["source_id"] = source_id
-    frame["record_id"] = record_ids(frame, source_id)
-    return frame.drop(columns=["column"])
+        table = table.take(pa.array(np.argsort(rows, kind="stable")))
+    ids = record_ids_of_table(table, source_id)
+    table = table.drop_columns(["column"])
+    table = table.append_column("source_id", pa.array(np.full(len(table), source_id), pa.string()))
+    table = table.append_column("record_id", pa.array(ids, pa.string()))
+    return prepare_table(table, tables.INDIVIDUAL_VALUES)
+
+
+def name_counts(names: pd.Series) -> dict[str, int]:
+    """Cells per trait name (a missing name counts as '')."""
+    counts: Counter[str] = Counter()
+    for name, count in names.value_counts(dropna=False).items():
+        if count:
+            counts["" if pd.isna(name) else str(name)] += int(count)
+    return dict(counts)
 
 
 class ValueSink:
@@ -189,23 +207,32 @@ class ValueSink:
         """Start a source; `keep=True` keeps its values whatever their number (aggregation)."""
         self._source, self._source_rows, self._keep_source = [], 0, keep
 
-    def add(self, frame: pd.DataFrame, *, prepared: bool = False) -> None:
-        """Take a batch of values; `prepared` says it went through `package.prepare_frame`."""
-        if frame.empty:
+    def add(self, frame: pd.DataFrame | pa.Table, *, prepared: bool = False) -> None:
+        """Take a batch of values: a frame (`prepared`: it went through
+        `package.prepare_frame`) or an Arrow table from `individual_rows`."""
+        if len(frame) == 0:
             return
-        prepared_frame = frame if prepared else prepare_frame(frame, tables.INDIVIDUAL_VALUES)
+        if isinstance(frame, pd.DataFrame) and not prepared:
+            frame = prepare_frame(frame, tables.INDIVIDUAL_VALUES)
         if self.writer is not None:
-            self.writer.write(prepared_frame)
-        self.rows += len(prepared_frame)
-        self._source_rows += len(prepared_frame)
-        self.trait_ids.update(str(t) for t in prepared_frame["trait_id"].dropna().unique())
+            self.writer.write(frame)
+        self.rows += len(frame)
+        self._source_rows += len(frame)
+        if isinstance(frame, pa.Table):
+            traits = pc.unique(frame["trait_id"].combine_chunks()).drop_null().to_pylist()
+        else:
+            traits = frame["trait_id"].dropna().unique()
+        self.trait_ids.update(str(t) for t in traits)
+        keep_source = self._source is not None and (
+            self._keep_source or self._within(self._source_rows)
+        )
+        keep_all = self._all is not None and self._within(self.rows)
+        if (keep_source or keep_all) and isinstance(frame, pa.Table):
+            frame = frame_of_table(frame)  # pandas only for values that are kept
         if self._source is not None:
-            if self._keep_source or self._within(self._source_rows):
-                self._source.append(prepared_frame)
-            else:
-                self._source = None
+            self._source = self._source + [frame] if keep_source else None
         if self._all is not None:
-            self._all = self._all + [prepared_frame] if self._within(self.rows) else None
+            self._all = self._all + [frame] if keep_all else None
 
     @property
     def source_rows(self) -> int:
@@ -243,7 +270,7 @@ class StagedBatch:
 
     Made by `stage_batch`, on this machine or on a worker of a cluster (`distributed`)."""
 
-    individual: pd.DataFrame  # output rows in row order, prepared for writing
+    individual: pa.Table  # output rows in row order, prepared for writing (`prepare_table`)
     statistic_cells: pd.DataFrame
     rejects: pd.DataFrame
     rows: int
@@ -258,13 +285,10 @@ def stage_batch(
 ) -> StagedBatch:
     """Assemble one batch of cells whose names the plan already knows (see `learn_names`)."""
     cells = batch.cells
-    names = cells["original_name"].astype(object).fillna("")
     result = assemble_batch(cells, plan)
     individual = result.individual
-    if not individual.empty:
-        individual = prepare_frame(
-            individual_rows(individual, plan.mapping.source), tables.INDIVIDUAL_VALUES
-        )
+    if individual.num_rows:
+        individual = individual_rows(individual, plan.mapping.source)
     return StagedBatch(
         individual=individual,
         statistic_cells=result.statistic_cells,
@@ -272,7 +296,7 @@ def stage_batch(
         rows=batch.rows,
         cells=len(cells),
         empty=result.empty,
-        name_cells=names.value_counts().to_dict(),
+        name_cells=name_counts(cells["original_name"]),
         fraction_read=fraction_read if fraction_read is not None else batch.fraction_read,
     )
 
@@ -285,8 +309,9 @@ def _local_stager(project: Project, settings: BuildSettings, decisions: dict) ->
 
     def staged(plan: SourcePlan) -> Iterator[StagedBatch]:
         for batch in sources.iter_cells(plan.mapping, project.limits):
-            names = batch.cells["original_name"].astype(object).fillna("")
-            learn_names(plan, list(pd.unique(names)), settings, decisions)
+            names = Coded.of(batch.cells["original_name"])
+            distinct = names.texts[pd.unique(names.codes)]  # in order of first appearance
+            learn_names(plan, ["" if n is None else n for n in distinct], settings, decisions)
             for part in cell_slices(batch):
                 yield stage_batch(part, plan)
 

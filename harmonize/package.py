@@ -169,6 +169,39 @@ def prepare_frame(frame: pd.DataFrame | None, resource: data_model.Resource) -> 
     return _empty_strings_to_missing(conformed, resource)
 
 
+def prepare_table(table: pa.Table, resource: data_model.Resource) -> pa.Table:
+    """An Arrow table as `prepare_frame` prepares a frame: the resource's columns in order with
+    their Arrow types (dates still as text: the writer parses them), empty strings missing."""
+    extra = set(table.column_names) - set(resource.column_names)
+    if extra:
+        raise ValueError(f"{resource.name}: unexpected columns {sorted(extra)}")
+    arrays, fields = [], []
+    for column in resource.columns:
+        kind = pa.string() if column.type == "date" else _ARROW_TYPES[column.type]
+        if column.name in table.column_names:
+            array = table[column.name].combine_chunks().cast(kind)
+            if column.type in ("string", "date"):
+                array = pc.if_else(pc.equal(array, ""), pa.scalar(None, pa.string()), array)
+        else:
+            array = pa.nulls(len(table), type=kind)
+        arrays.append(array)
+        fields.append(pa.field(column.name, kind))
+    return pa.Table.from_arrays(arrays, schema=pa.schema(fields))
+
+
+# Arrow type -> pandas dtype of a prepared frame (`tables.PANDAS_DTYPES`)
+_PANDAS_OF_ARROW = {
+    pa.string(): pd.StringDtype(),
+    pa.int64(): pd.Int64Dtype(),
+    pa.bool_(): pd.BooleanDtype(),
+}
+
+
+def frame_of_table(table: pa.Table) -> pd.DataFrame:
+    """A table from `prepare_table` as the frame `prepare_frame` would have made."""
+    return table.to_pandas(types_mapper=_PANDAS_OF_ARROW.get)
+
+
 def _with_missing_columns(
     frame: pd.DataFrame | None, resource: data_model.Resource
 ) -> pd.DataFrame:
@@ -244,16 +277,28 @@ def _arrow_table(frame: pd.DataFrame, resource: data_model.Resource, schema: pa.
         series = frame[column.name]
         if column.type == "date":
             strings = pa.array(series, type=pa.string(), from_pandas=True)
-            try:
-                parsed = pc.strptime(strings, format="%Y-%m-%d", unit="s")
-            except pa.ArrowInvalid as error:
-                raise BuildError(
-                    f"{resource.name}: column {column.name!r} holds a value that is not an "
-                    f"ISO date ({error})"
-                ) from error
-            arrays.append(pc.cast(parsed, pa.date32()))
+            arrays.append(_parse_dates(strings, resource, column.name))
         else:
             arrays.append(pa.array(series, type=_ARROW_TYPES[column.type], from_pandas=True))
+    return pa.Table.from_arrays(arrays, schema=schema)
+
+
+def _parse_dates(strings: pa.Array, resource: data_model.Resource, name: str) -> pa.Array:
+    try:
+        parsed = pc.strptime(strings, format="%Y-%m-%d", unit="s")
+    except pa.ArrowInvalid as error:
+        raise BuildError(
+            f"{resource.name}: column {name!r} holds a value that is not an ISO date ({error})"
+        ) from error
+    return pc.cast(parsed, pa.date32())
+
+
+def _with_dates(table: pa.Table, resource: data_model.Resource, schema: pa.Schema) -> pa.Table:
+    """A prepared table in the written schema: its date columns parsed from their text."""
+    arrays = [
+        _parse_dates(table[c.name], resource, c.name) if c.type == "date" else table[c.name]
+        for c in resource.columns
+    ]
     return pa.Table.from_arrays(arrays, schema=schema)
 
 
@@ -308,14 +353,21 @@ class ResourceWriter:
         self._digest.update(data)
         self._size += len(data)
 
-    def write(self, frame: pd.DataFrame) -> None:
-        if frame.empty:
+    def write(self, frame: pd.DataFrame | pa.Table) -> None:
+        """Write prepared rows: a frame from `prepare_frame` or a table from `prepare_table`."""
+        if len(frame) == 0:
             return
         self.rows += len(frame)
         if self.fmt == "csv":
+            if isinstance(frame, pa.Table):
+                frame = frame_of_table(frame)
             self._emit(_csv_text(frame, self.resource, header=False))
             return
-        self._pending.append(_arrow_table(frame, self.resource, self._schema))
+        if isinstance(frame, pa.Table):
+            table = _with_dates(frame, self.resource, self._schema)
+        else:
+            table = _arrow_table(frame, self.resource, self._schema)
+        self._pending.append(table)
         self._pending_rows += len(frame)
         if self._pending_rows >= PARQUET_ROW_GROUP_ROWS:
             self._flush(final=False)

@@ -13,6 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from harmonize import values
 from harmonize.errors import RejectReason
@@ -281,26 +283,47 @@ def aggregate_individuals(values: pd.DataFrame, by: tuple[str, ...], source: str
     return out
 
 
+# What identifies a value: its place in the source, its trait and its context.
+RECORD_ID_COLUMNS = (
+    "source_row", "column", "trait_id", "taxon_verbatim", "sex", "life_stage", "site", "date",
+    "measurement_temperature",
+)  # fmt: skip
+
+
 def record_ids(frame: pd.DataFrame, source: str) -> np.ndarray:
     """Stable 16-hex ids from source, row, trait and context (vectorised hashing, no per-row calls)."""
-    columns = [
-        c
-        for c in (
-            "source_row",
-            "column",
-            "trait_id",
-            "taxon_verbatim",
-            "sex",
-            "life_stage",
-            "site",
-            "date",
-            "measurement_temperature",
-        )
-        if c in frame.columns
-    ]
+    columns = [c for c in RECORD_ID_COLUMNS if c in frame.columns]
     basis = frame[columns].astype(str)
     basis.insert(0, "source_id", source)
     return hex_hashes(pd.util.hash_pandas_object(basis, index=False).to_numpy())
+
+
+def record_ids_of_table(table: pa.Table, source: str) -> np.ndarray:
+    """`record_ids` of an Arrow table, the same ids: each column is turned into text once per
+    distinct value and hashed as a categorical, which pandas hashes exactly like the text."""
+    columns = {
+        "source_id": pd.Categorical.from_codes(np.zeros(len(table), dtype=np.int8), [source])
+    }
+    for name in RECORD_ID_COLUMNS:
+        if name not in table.column_names:
+            continue
+        column = table[name].combine_chunks()
+        if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
+            encoded = pc.dictionary_encode(column)
+            codes = pc.fill_null(encoded.indices, -1).to_numpy(zero_copy_only=False)
+            distinct = pd.Series(encoded.dictionary.to_pylist(), dtype=object)
+        else:
+            codes, distinct = pd.factorize(column.to_numpy(zero_copy_only=False))
+            distinct = pd.Series(distinct)
+        # the text of each distinct value, as `astype(str)` makes it (missing stays missing)
+        texts = distinct.astype(str)
+        merged, categories = pd.factorize(texts, use_na_sentinel=True)
+        mapped = np.append(merged, -1)[codes]  # code -1 (missing) stays -1
+        columns[name] = pd.Categorical.from_codes(
+            mapped, categories=pd.Index(categories, dtype=object)
+        )
+    hashes = pd.util.hash_pandas_object(pd.DataFrame(columns), index=False).to_numpy()
+    return hex_hashes(hashes)
 
 
 def hex_hashes(hashes: np.ndarray) -> np.ndarray:

@@ -23,6 +23,19 @@ def _as_text(value: object) -> str | None:
     return value if isinstance(value, str) else str(value)
 
 
+def _text_objects(values: np.ndarray) -> np.ndarray:
+    """An object array of str or None: a C-level check, and Python per value only when some
+    value is not text already (numbers handed over by a reader, NaN for missing)."""
+    values = np.asarray(values, dtype=object)
+    if pd.api.types.infer_dtype(values, skipna=False) == "string":
+        return values
+    return np.array([_as_text(v) for v in values], dtype=object)
+
+
+def _texts_to_arrow(texts: np.ndarray) -> pa.Array:
+    return pa.array(_text_objects(texts), type=pa.string())
+
+
 @dataclass(frozen=True)
 class Coded:
     """A text column: `texts[codes[i]]` is cell i. `texts` is an object array of str or None
@@ -45,7 +58,7 @@ class Coded:
             return column
         if isinstance(column, pd.Series) and isinstance(column.dtype, pd.CategoricalDtype):
             categories = column.cat.categories.to_numpy(dtype=object)
-            texts = np.array([*(_as_text(t) for t in categories), None], dtype=object)
+            texts = np.append(categories, None).astype(object)
             codes = column.cat.codes.to_numpy().astype(np.int32)
             codes[codes < 0] = len(texts) - 1
             return cls(codes, texts)
@@ -68,7 +81,8 @@ class Coded:
         if isinstance(column, pa.ChunkedArray):
             column = column.combine_chunks()
         encoded = pc.dictionary_encode(column)
-        texts = np.array([*encoded.dictionary.to_pylist(), None], dtype=object)
+        dictionary = encoded.dictionary.to_numpy(zero_copy_only=False)
+        texts = np.append(dictionary.astype(object), None).astype(object)
         codes = pc.fill_null(encoded.indices, len(texts) - 1).to_numpy(zero_copy_only=False)
         return cls(codes.astype(np.int32), texts)
 
@@ -84,13 +98,16 @@ class Coded:
         return self.texts[self.codes]
 
     def arrow(self) -> pa.Array:
-        texts = pa.array([_as_text(t) for t in self.texts], type=pa.string())
-        return pc.take(texts, pa.array(self.codes))
+        codes, texts = self.codes, self.texts
+        if len(texts) > len(codes):  # a slice of a batch: convert only the texts it uses
+            used, codes = np.unique(codes, return_inverse=True)
+            texts = texts[used]
+        return pc.take(_texts_to_arrow(texts), pa.array(codes.reshape(-1)))
 
     def categorical(self) -> pd.Categorical:
         """The column as a pandas categorical (repeated texts merged, None missing)."""
         merged, distinct = pd.factorize(
-            pd.Series([_as_text(t) for t in self.texts], dtype=object), use_na_sentinel=True
+            pd.Series(_text_objects(self.texts), dtype=object), use_na_sentinel=True
         )
         categories = pd.Index(np.asarray(distinct, dtype=object), dtype=object)
         return pd.Categorical.from_codes(merged[self.codes], categories=categories)
