@@ -215,7 +215,11 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     fate.reject(unmatched, RejectReason.UNMATCHED_NAME, per_name["message"])
 
     # per-trait facts: a trait follows from the name, so they are looked up once per name too
-    name_traits = lookup_tables.trait_table(list(name_table["trait_id"]), vocabulary, mapping.level)
+    trait_of_name, traits_met = pd.factorize(
+        pd.Series(name_table["trait_id"], dtype=object), use_na_sentinel=False
+    )
+    name_traits = lookup_tables.trait_table(list(traits_met), vocabulary, mapping.level)
+    name_traits = name_traits.iloc[trait_of_name].reset_index(drop=True)
     per_trait = {
         column: name_traits[column].to_numpy()[name_codes] for column in name_traits.columns
     }

@@ -331,6 +331,7 @@ def build_project(
                 fmt=project.output_format,
                 written={tables.INDIVIDUAL_VALUES.name: values_file},
             )
+            flushing = publish.flush_in_background(staging)
             small = values_file.rows <= SMALL_PACKAGE_ROWS
             run_frictionless = small if frictionless is None else frictionless
             validation = _validate(staging, run_frictionless)
@@ -354,7 +355,7 @@ def build_project(
                 )
             elif progress:
                 progress("changes-skipped", {"rows": values_file.rows})
-            publish.swap_into_place(staging, output)
+            publish.swap_into_place(staging, output, flushing)
         finally:
             if writer is not None:
                 writer.abort()

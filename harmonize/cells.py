@@ -139,7 +139,7 @@ def _wide_cells(
     }
     for key, values in context.items():  # the same row context for every trait column
         if isinstance(values, Coded):
-            pieces[key] = Coded(np.tile(values.codes, len(columns)), values.texts)
+            pieces[key] = values.tile(len(columns))
         else:
             pieces[key] = np.tile(values, len(columns))
     return _cell_frame(pieces, count * len(columns))[list(CELL_COLUMNS)]

@@ -168,7 +168,7 @@ def individual_rows(table: pa.Table, source_id: str) -> pa.Table:
     ids = record_ids_of_table(table, source_id)
     table = table.drop_columns(["column"])
     table = table.append_column("source_id", pa.array(np.full(len(table), source_id), pa.string()))
-    table = table.append_column("record_id", pa.array(ids, pa.string()))
+    table = table.append_column("record_id", ids)
     return prepare_table(table, tables.INDIVIDUAL_VALUES)
 
 

@@ -39,6 +39,7 @@ import socket
 import tempfile
 import time
 from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import asdict, dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -306,9 +307,23 @@ def _pause_for_tests() -> None:
         time.sleep(float(text))
 
 
-def swap_into_place(staging: Path, output: Path) -> None:
-    """Make the complete staging folder the output; the old package is removed afterwards."""
-    _fsync_tree(staging)
+def flush_in_background(folder: Path) -> Future:
+    """Start flushing a finished staging folder to disk while the build goes on (validation
+    only reads it); `swap_into_place` waits for it. Flushing a large package takes seconds."""
+    executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fsync")
+    flushing = executor.submit(_fsync_tree, folder)
+    executor.shutdown(wait=False)
+    return flushing
+
+
+def swap_into_place(staging: Path, output: Path, flushing: Future | None = None) -> None:
+    """Make the complete staging folder the output; the old package is removed afterwards.
+
+    `flushing` is a flush started by `flush_in_background` once the folder was complete."""
+    if flushing is not None:
+        flushing.result()  # re-raises a failed flush here
+    else:
+        _fsync_tree(staging)
     _pause_for_tests()
     if not output.exists():
         os.replace(staging, output)  # renaming onto a missing name is atomic

@@ -298,32 +298,67 @@ def record_ids(frame: pd.DataFrame, source: str) -> np.ndarray:
     return hex_hashes(pd.util.hash_pandas_object(basis, index=False).to_numpy())
 
 
-def record_ids_of_table(table: pa.Table, source: str) -> np.ndarray:
-    """`record_ids` of an Arrow table, the same ids: each column is turned into text once per
-    distinct value and hashed as a categorical, which pandas hashes exactly like the text."""
-    columns = {
-        "source_id": pd.Categorical.from_codes(np.zeros(len(table), dtype=np.int8), [source])
-    }
+def record_ids_of_table(table: pa.Table, source: str) -> pa.Array:
+    """`record_ids` of an Arrow table, the same ids, as an Arrow text column.
+
+    `record_ids` hashes each column's text with pandas (`hash_pandas_object`), which hashes a
+    text column by its distinct texts and combines the columns like a tuple hash. This does
+    the same from Arrow: each distinct value is turned into text and hashed once, and its hash
+    taken by code, so no Python string is made per cell (except the row numbers).
+    """
+    count = len(table)
+    hashed = [np.full(count, _text_hashes(np.array([source], dtype=object))[0], dtype=np.uint64)]
     for name in RECORD_ID_COLUMNS:
-        if name not in table.column_names:
-            continue
-        column = table[name].combine_chunks()
-        if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
-            encoded = pc.dictionary_encode(column)
-            codes = pc.fill_null(encoded.indices, -1).to_numpy(zero_copy_only=False)
-            distinct = pd.Series(encoded.dictionary.to_pylist(), dtype=object)
-        else:
-            codes, distinct = pd.factorize(column.to_numpy(zero_copy_only=False))
-            distinct = pd.Series(distinct)
-        # the text of each distinct value, as `astype(str)` makes it (missing stays missing)
-        texts = distinct.astype(str)
-        merged, categories = pd.factorize(texts, use_na_sentinel=True)
-        mapped = np.append(merged, -1)[codes]  # code -1 (missing) stays -1
-        columns[name] = pd.Categorical.from_codes(
-            mapped, categories=pd.Index(categories, dtype=object)
-        )
-    hashes = pd.util.hash_pandas_object(pd.DataFrame(columns), index=False).to_numpy()
-    return hex_hashes(hashes)
+        if name in table.column_names:
+            hashed.append(_column_hashes(table[name].combine_chunks()))
+    return _hex_arrow(_combine_hashes(hashed))
+
+
+def _text_hashes(texts: np.ndarray) -> np.ndarray:
+    return pd.util.hash_array(texts, encoding="utf8", hash_key=_PANDAS_HASH_KEY, categorize=False)
+
+
+def _column_hashes(column: pa.Array) -> np.ndarray:
+    """Per cell, pandas' hash of the cell's text (`astype(str)`; missing cells stay missing)."""
+    if pa.types.is_integer(column.type) and column.null_count == 0:
+        return _text_hashes(pc.cast(column, pa.string()).to_numpy(zero_copy_only=False))
+    if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
+        encoded = pc.dictionary_encode(column)
+        codes = pc.fill_null(encoded.indices, -1).to_numpy(zero_copy_only=False)
+        texts = encoded.dictionary.to_numpy(zero_copy_only=False).astype(object)
+    else:
+        codes, distinct = pd.factorize(column.to_numpy(zero_copy_only=False))
+        as_text = pd.Series(distinct).astype(str)  # the text pandas gives each value
+        texts = as_text.to_numpy(dtype=object)
+        missing = np.append(as_text.isna().to_numpy(), True)  # the last: code -1
+        codes = np.where(missing[codes], -1, codes)
+    hashes = np.append(_text_hashes(texts), np.uint64(np.iinfo(np.uint64).max))
+    return hashes[codes]  # code -1 (missing) takes the last: pandas' missing-value hash
+
+
+def _combine_hashes(arrays: list[np.ndarray]) -> np.ndarray:
+    """Row hashes from column hashes, as pandas combines them (after CPython's tuple hash)."""
+    multiplier = np.uint64(1000003)
+    out = np.zeros_like(arrays[0]) + np.uint64(0x345678)
+    for i, hashes in enumerate(arrays):
+        inverse = len(arrays) - i
+        out ^= hashes
+        out *= multiplier
+        multiplier += np.uint64(82520 + inverse + inverse)
+    return out + np.uint64(97531)
+
+
+def _hex_arrow(hashes: np.ndarray) -> pa.Array:
+    """uint64 hashes -> 16-character hex texts, as `hex_hashes` writes them, built in Arrow."""
+    raw = np.ascontiguousarray(hashes.astype(">u8")).tobytes().hex().encode("ascii")
+    fixed = pa.FixedSizeBinaryArray.from_buffers(
+        pa.binary(16), len(hashes), [None, pa.py_buffer(raw)]
+    )
+    return fixed.cast(pa.binary()).cast(pa.string())
+
+
+# pandas' default key for `hash_pandas_object` (pandas.core.util.hashing)
+_PANDAS_HASH_KEY = "0123456789123456"
 
 
 def hex_hashes(hashes: np.ndarray) -> np.ndarray:

@@ -9,8 +9,6 @@ Python string per cell (measured on this project's machine: about 25 ns a cell i
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 import pandas as pd
 import pyarrow as pa
@@ -27,7 +25,11 @@ def _text_objects(values: np.ndarray) -> np.ndarray:
     """An object array of str or None: a C-level check, and Python per value only when some
     value is not text already (numbers handed over by a reader, NaN for missing)."""
     values = np.asarray(values, dtype=object)
-    if pd.api.types.infer_dtype(values, skipna=False) == "string":
+    if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty"):
+        missing = pd.isna(values)
+        if missing.any():
+            values = values.copy()
+            values[missing] = None  # NaN or pd.NA from pandas: None
         return values
     return np.array([_as_text(v) for v in values], dtype=object)
 
@@ -36,32 +38,71 @@ def _texts_to_arrow(texts: np.ndarray) -> pa.Array:
     return pa.array(_text_objects(texts), type=pa.string())
 
 
-@dataclass(frozen=True)
 class Coded:
-    """A text column: `texts[codes[i]]` is cell i. `texts` is an object array of str or None
-    (None is a missing cell) and may repeat a text; every code indexes `texts`."""
+    """A text column: `texts[codes[i]]` is cell i. `texts` holds str or None (None is a missing
+    cell) and may repeat a text; every code indexes `texts`.
 
-    codes: np.ndarray
-    texts: np.ndarray
+    The texts are kept as Python objects, as an Arrow array, or both: a column read by Arrow
+    keeps its distinct texts in Arrow, so a column with many distinct texts (individual ids,
+    dates) goes from the reader to the writer without a Python string being made for it.
+    """
+
+    __slots__ = ("codes", "_texts", "_arrow", "distinct")
+
+    def __init__(
+        self,
+        codes: np.ndarray,
+        texts: np.ndarray | None = None,
+        distinct: bool = False,
+        *,
+        arrow: pa.Array | None = None,
+    ) -> None:
+        if texts is None and arrow is None:
+            raise ValueError("Coded needs texts or their Arrow array")
+        self.codes = codes
+        self._texts = None if texts is None else np.asarray(texts, dtype=object)
+        self._arrow = arrow
+        # True: the texts are str, none repeated, and the last is None
+        self.distinct = distinct
 
     def __len__(self) -> int:
         return len(self.codes)
+
+    def __repr__(self) -> str:
+        return f"Coded(codes={self.codes!r}, texts={self.texts!r})"
+
+    @property
+    def texts(self) -> np.ndarray:
+        if self._texts is None:
+            assert self._arrow is not None
+            self._texts = self._arrow.to_numpy(zero_copy_only=False).astype(object)
+        return self._texts
+
+    @property
+    def text_count(self) -> int:
+        return len(self._arrow) if self._texts is None else len(self._texts)
 
     @classmethod
     def constant(cls, text: str | None, length: int) -> Coded:
         return cls(np.zeros(length, dtype=np.int32), np.array([text], dtype=object))
 
     @classmethod
-    def of(cls, column: pd.Series | np.ndarray | Coded) -> Coded:
+    def of(cls, column: pd.Series | np.ndarray | Coded | pa.Array | pa.ChunkedArray) -> Coded:
         """Codes of any column: a categorical keeps its codes, anything else is factorised."""
         if isinstance(column, Coded):
             return column
         if isinstance(column, pd.Series) and isinstance(column.dtype, pd.CategoricalDtype):
-            categories = column.cat.categories.to_numpy(dtype=object)
-            texts = np.append(categories, None).astype(object)
+            categories = column.cat.categories
             codes = column.cat.codes.to_numpy().astype(np.int32)
-            codes[codes < 0] = len(texts) - 1
-            return cls(codes, texts)
+            codes[codes < 0] = len(categories)
+            if isinstance(categories.dtype, pd.StringDtype | pd.ArrowDtype):
+                arrow = pa.array(categories, from_pandas=True)
+                if isinstance(arrow, pa.ChunkedArray):
+                    arrow = arrow.combine_chunks()
+                arrow = pa.concat_arrays([arrow.cast(pa.string()), pa.nulls(1, pa.string())])
+                return cls(codes, distinct=True, arrow=arrow)
+            texts = np.append(categories.to_numpy(dtype=object), None).astype(object)
+            return cls(codes, texts, distinct=categories.inferred_type == "string")
         if isinstance(column, pd.Series) and isinstance(
             column.dtype, pd.StringDtype | pd.ArrowDtype
         ):
@@ -80,24 +121,29 @@ class Coded:
     def _of_arrow(cls, column: pa.Array | pa.ChunkedArray) -> Coded:
         if isinstance(column, pa.ChunkedArray):
             column = column.combine_chunks()
-        encoded = pc.dictionary_encode(column)
-        dictionary = encoded.dictionary.to_numpy(zero_copy_only=False)
-        texts = np.append(dictionary.astype(object), None).astype(object)
-        codes = pc.fill_null(encoded.indices, len(texts) - 1).to_numpy(zero_copy_only=False)
-        return cls(codes.astype(np.int32), texts)
+        encoded = pc.dictionary_encode(column.cast(pa.string()))
+        dictionary = pa.concat_arrays([encoded.dictionary, pa.nulls(1, pa.string())])
+        codes = pc.fill_null(encoded.indices, len(dictionary) - 1).to_numpy(zero_copy_only=False)
+        return cls(codes.astype(np.int32), distinct=True, arrow=dictionary)
 
     def map(self, texts: np.ndarray) -> Coded:
         """The same codes into other texts, one per distinct text (e.g. each text cleaned)."""
         return Coded(self.codes, np.asarray(texts, dtype=object))
 
     def take(self, rows: np.ndarray) -> Coded:
-        return Coded(self.codes[rows], self.texts)
+        return Coded(self.codes[rows], self._texts, self.distinct, arrow=self._arrow)
+
+    def tile(self, times: int) -> Coded:
+        """The column repeated end to end `times` times (same texts)."""
+        return Coded(np.tile(self.codes, times), self._texts, self.distinct, arrow=self._arrow)
 
     def values(self) -> np.ndarray:
         """The cells as a Python-object array (None for missing)."""
         return self.texts[self.codes]
 
     def arrow(self) -> pa.Array:
+        if self._arrow is not None:
+            return pc.take(self._arrow, pa.array(self.codes))
         codes, texts = self.codes, self.texts
         if len(texts) > len(codes):  # a slice of a batch: convert only the texts it uses
             used, codes = np.unique(codes, return_inverse=True)
@@ -106,6 +152,14 @@ class Coded:
 
     def categorical(self) -> pd.Categorical:
         """The column as a pandas categorical (repeated texts merged, None missing)."""
+        if self.distinct:
+            codes = np.where(self.codes == self.text_count - 1, -1, self.codes)
+            if self._arrow is not None:  # categories stay Arrow text: no Python strings
+                distinct = self._arrow.slice(0, len(self._arrow) - 1)
+                categories = pd.Index(pd.arrays.ArrowStringArray(distinct))
+            else:
+                categories = pd.Index(self.texts[:-1], dtype=object)
+            return pd.Categorical.from_codes(codes, categories=categories, validate=False)
         merged, distinct = pd.factorize(
             pd.Series(_text_objects(self.texts), dtype=object), use_na_sentinel=True
         )
