@@ -151,6 +151,9 @@ def _check_resource(
 
 def _key_hashes(batch: pa.RecordBatch, columns: list[str]) -> np.ndarray:
     """A 64-bit hash of each row's key: 8 bytes a row, whatever the key's width."""
+    if len(columns) == 1:  # no frame needed for a one-column key (record_id)
+        values = batch.column(columns[0]).to_numpy(zero_copy_only=False)
+        return pd.util.hash_array(np.asarray(values, dtype=object), categorize=False)
     frame = pa.Table.from_batches([batch]).select(columns).to_pandas()
     return pd.util.hash_pandas_object(frame, index=False).to_numpy()
 
@@ -265,6 +268,11 @@ class _ForeignKey:
             self.problem = problem(name, "source-error", message, field=",".join(self.fields))
             return
         parent = pa.concat_tables(parts) if parts else None
+        # one-column keys (trait_id, source_id) are checked in Arrow, per distinct child value
+        self.parent_values: pa.Array | None = None
+        if parent is not None and len(self.target_fields) == 1:
+            column = pc.cast(parent.column(self.target_fields[0]), pa.string())
+            self.parent_values = pc.unique(column.combine_chunks()).drop_null()
         frame = _as_text(parent, self.target_fields) if parent is not None else pd.DataFrame()
         self.parent = (
             pd.MultiIndex.from_frame(frame)
@@ -278,6 +286,11 @@ class _ForeignKey:
             return found
         if self.parent is None or limit <= 0:
             return []
+        if self.parent_values is not None and len(self.fields) == 1:
+            column = pc.cast(batch.column(self.fields[0]), pa.string())
+            distinct = pc.unique(column).drop_null()  # a missing cell is not checked
+            if pc.all(pc.is_in(distinct, value_set=self.parent_values)).as_py() is not False:
+                return []  # every value known: the common case, settled without Python
         child = _as_text(pa.Table.from_batches([batch]), self.fields)
         complete = child.notna().all(axis=1).to_numpy()  # a missing foreign-key cell is not checked
         # distinct child keys only: a 5-million-row table names a few dozen traits

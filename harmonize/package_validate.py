@@ -394,8 +394,12 @@ def _missing_mask(column: pa.ChunkedArray, missing_values: list[Any]) -> pa.Chun
         # as an empty cell, so both formats agree that it is missing.
         mask = pc.or_(mask, pc.fill_null(pc.is_nan(column), False))
     if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
-        tokens = pa.array([str(v) for v in missing_values], type=pa.string())
-        mask = pc.or_(mask, pc.fill_null(pc.is_in(column, value_set=tokens), False))
+        tokens = [str(v) for v in missing_values]
+        if len(tokens) == 1:  # the usual [""]: a plain comparison, cheaper than a set lookup
+            found = pc.equal(column, tokens[0])
+        else:
+            found = pc.is_in(column, value_set=pa.array(tokens, type=pa.string()))
+        mask = pc.or_(mask, pc.fill_null(found, False))
     return mask
 
 
