@@ -75,7 +75,7 @@ class BatchResult:
     empty: int
 
 
-def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> Coded:
+def _join_flags(*parts: np.ndarray | Coded | tuple[np.ndarray, str]) -> Coded:
     """Join per-row flags with ';', skipping blanks (None where a row has none). A part is an array of texts ('' or None
     for no flag) or a (mask, text) pair: the text where the mask is true.
 
@@ -90,6 +90,10 @@ def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> Coded:
         if isinstance(part, tuple):
             mask, text = part
             codes, uniques = np.asarray(mask, dtype=np.int64), np.array(["", text], dtype=object)
+        elif isinstance(part, Coded):
+            used, codes = np.unique(part.codes, return_inverse=True)
+            uniques = np.array([t or "" for t in part.texts[used]], dtype=object)
+            codes = codes.reshape(-1)
         else:
             codes, uniques = pd.factorize(pd.Series(part, dtype=object).fillna(""))
             uniques = np.asarray(uniques, dtype=object)
@@ -113,11 +117,10 @@ def _join_flags(*parts: np.ndarray | tuple[np.ndarray, str]) -> Coded:
     )
 
 
-def _labelled(prefix: str, values: np.ndarray) -> np.ndarray:
+def _labelled(prefix: str, values: np.ndarray) -> Coded:
     """`prefix` + value where a value is given, '' elsewhere; built once per distinct value."""
-    codes, uniques = pd.factorize(pd.Series(values, dtype=object))
-    labels = np.array([f"{prefix}{u}" if u != "" else "" for u in uniques] + [""], dtype=object)
-    return labels[codes]  # code -1 (missing) takes the trailing ''
+    coded = Coded.of(values)
+    return coded.map([f"{prefix}{t}" if t else "" for t in coded.texts])
 
 
 def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.DataFrame:
@@ -135,14 +138,8 @@ def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.
     )
 
 
-def normalise_statistic(raw: pd.Series) -> pd.Series:
-    # worked out per distinct spelling, taken per cell by integer codes
-    codes, uniques = pd.factorize(pd.Series(raw, dtype=object), use_na_sentinel=True)
-    known = [
-        STATISTIC_ALIASES.get(v.strip().lower()) if isinstance(v, str) else None
-        for v in np.asarray(uniques, dtype=object)
-    ]
-    return pd.Series(np.array([*known, None], dtype=object)[codes], index=raw.index, dtype=object)
+def _statistic_code(text: object) -> str | None:
+    return STATISTIC_ALIASES.get(text.strip().lower()) if isinstance(text, str) else None
 
 
 class _Fate:
@@ -260,24 +257,21 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
 
     # 5. statistic
     hints = per_name["statistic_hint"]
-    declared = cells["statistic"]
-    statistic = normalise_statistic(declared).to_numpy(dtype=object)
-    unknown_stat = (
-        declared.notna().to_numpy()
-        & (declared.astype(str).str.strip() != "").to_numpy()
-        & pd.isna(statistic)
-    )
-    declared_text = declared.to_numpy(dtype=object)
+    declared = Coded.of(cells["statistic"])  # worked out once per distinct spelling
+    known = np.array([_statistic_code(t) for t in declared.texts], dtype=object)
+    given = np.array([isinstance(t, str) and t.strip() != "" for t in declared.texts], dtype=bool)
+    statistic = known[declared.codes]
+    unknown_stat = (given & pd.isna(known))[declared.codes]
     fate.reject(
         unknown_stat,
         RejectReason.UNKNOWN_STATISTIC,
         lambda at: [
             f"unknown statistic '{s}'; use one of {', '.join(STATISTIC_CODES)}"
-            for s in declared_text[at]
+            for s in declared.texts[declared.codes[at]]
         ],
     )
     statistic = np.where(pd.isna(statistic), hints, statistic)
-    stat_flags = np.full(count, "", dtype=object)
+    assumed_mean = np.zeros(count, dtype=bool)
     if mapping.level == "individual":
         not_value = ~pd.isna(statistic) & (statistic != "value")
         fate.reject(
@@ -292,9 +286,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     else:
         assumed = pd.isna(statistic)
         statistic = np.where(assumed, "mean", statistic)
-        stat_flags = np.where(
-            assumed & ~np.isin(kind, ["category", "text"]), "statistic-assumed-mean", ""
-        )
+        assumed_mean = assumed & ~np.isin(kind, ["category", "text"])
 
     # 6. category traits
     is_category = np.isin(kind, ["category", "text"])
@@ -343,14 +335,10 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             np.where(pd.notna(hint_unit), "name-hint", "none"),
         ),
     )
-    unit_flags = np.where(
-        pd.notna(declared_unit) & pd.notna(cell_unit) & (declared_unit != cell_unit),
-        "cell-unit-differs-from-declared",
-        "",
-    )
+    unit_differs = pd.notna(declared_unit) & pd.notna(cell_unit) & (declared_unit != cell_unit)
     scale = np.ones(count)
     offset = np.zeros(count)
-    conversion_flags = np.full(count, "", dtype=object)
+    conversion_flags = Coded(np.zeros(count, dtype=np.int32), [""])  # text per unit pair
     needs_unit = numeric & (statistic != "n") & fate.open
     # a coefficient of variation is unit-free: its unit can only be %, a fraction or none
     unit_target = np.where(statistic == "cv", "dimensionless", canonical)
@@ -372,6 +360,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         ]
         reason = np.full(count, None, dtype=object)
         message = np.full(count, None, dtype=object)
+        flag_texts = [""]
         for code, (raw, canon) in enumerate(uniques):
             conv = units.conversion(
                 None if raw == "\0" else raw, canon if canon != "\0" else "dimensionless"
@@ -384,7 +373,9 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             scale[rows] = conv.scale
             offset[rows] = conv.offset
             if conv.flags:
-                conversion_flags[rows] = ";".join(conv.flags)
+                conversion_flags.codes[rows] = len(flag_texts)
+                flag_texts.append(";".join(conv.flags))
+        conversion_flags = conversion_flags.map(flag_texts)
         fate.reject(pd.notna(reason), reason, message)
 
     # 9. converted numbers: locations affine, SD/SE by |scale|, variance by scale**2 (never an
@@ -440,9 +431,9 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         (outside, "outside-plausible-range"),
         _labelled("qualifier:", qualifier),
         conversion_flags,
-        unit_flags,
+        (unit_differs, "cell-unit-differs-from-declared"),
         (unit_origin == "name-hint", "unit-from-name"),
-        stat_flags,
+        (assumed_mean, "statistic-assumed-mean"),
         (pd.notna(correction_label), "temperature-corrected"),
         (uncorrected, "rate-not-corrected:no-measurement-temperature"),
     )
