@@ -138,6 +138,20 @@ def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.
     )
 
 
+_STATISTIC_ARRAY = np.array(STATISTIC_CODES, dtype=object)
+_STATISTIC_INDEX = {code: i for i, code in enumerate(STATISTIC_CODES)}
+_VALUE, _MEAN, _MEDIAN, _N, _CV, _SD, _SE, _VARIANCE = (
+    _STATISTIC_INDEX[c] for c in ("value", "mean", "median", "n", "cv", "sd", "se", "variance")
+)
+
+
+def _statistic_index(codes) -> np.ndarray:
+    """Statistic codes as indices into STATISTIC_CODES; -1 where none is given."""
+    return np.array(
+        [_STATISTIC_INDEX.get(c, -1) if isinstance(c, str) else -1 for c in codes], dtype=np.int8
+    )
+
+
 def _statistic_code(text: object) -> str | None:
     return STATISTIC_ALIASES.get(text.strip().lower()) if isinstance(text, str) else None
 
@@ -202,32 +216,33 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     name_coded = name_coded.map([t if t is not None else "" for t in name_coded.texts])
     name_codes = name_coded.codes
     name_table = lookup_tables.name_table(list(name_coded.texts), plan)
-    per_name = {
-        column: name_table[column].to_numpy(dtype=object)[name_codes]
-        for column in name_table.columns
-    }
-    trait_id = per_name["trait_id"]
-    fate.reject(per_name["status"] == "rejected", RejectReason.NAME_REJECTED, per_name["message"])
-    unmatched = pd.isna(trait_id)
-    fate.reject(unmatched, RejectReason.UNMATCHED_NAME, per_name["message"])
+    name_trait_ids = name_table["trait_id"].to_numpy(dtype=object)
+    name_messages = name_table["message"].to_numpy(dtype=object)
+    trait_id = name_trait_ids[name_codes]
+    fate.reject(
+        (name_table["status"].to_numpy(dtype=object) == "rejected")[name_codes],
+        RejectReason.NAME_REJECTED,
+        lambda at: name_messages[name_codes[at]],
+    )
+    fate.reject(
+        pd.isna(name_trait_ids)[name_codes],
+        RejectReason.UNMATCHED_NAME,
+        lambda at: name_messages[name_codes[at]],
+    )
 
     # per-trait facts: a trait follows from the name, so they are looked up once per name too
     trait_of_name, traits_met = pd.factorize(
-        pd.Series(name_table["trait_id"], dtype=object), use_na_sentinel=False
+        pd.Series(name_trait_ids, dtype=object), use_na_sentinel=False
     )
     name_traits = lookup_tables.trait_table(list(traits_met), vocabulary, mapping.level)
     name_traits = name_traits.iloc[trait_of_name].reset_index(drop=True)
-    per_trait = {
-        column: name_traits[column].to_numpy()[name_codes] for column in name_traits.columns
-    }
-    used_traits = [
-        t for t in pd.unique(name_table["trait_id"].to_numpy(dtype=object)) if isinstance(t, str)
+    terms = {t: vocabulary.terms[t] for t in traits_met if isinstance(t, str)}
+    canonical_by_name = name_traits["unit"].to_numpy(dtype=object)
+    is_category = np.isin(name_traits["kind"].to_numpy(dtype=object), ["category", "text"])[
+        name_codes
     ]
-    terms = {t: vocabulary.terms[t] for t in used_traits}
-    kind = per_trait["kind"]
-    canonical = per_trait["unit"]
     by_name = {  # output columns that follow from the name alone
-        "trait_id": name_coded.map(name_table["trait_id"].to_numpy(dtype=object)),
+        "trait_id": name_coded.map(name_trait_ids),
         "match_method": name_coded.map(name_table["method"].to_numpy(dtype=object)),
         "unit": name_coded.map(name_traits["unit_text"].to_numpy(dtype=object)),
         "ucum": name_coded.map(name_traits["ucum"].to_numpy(dtype=object)),
@@ -239,7 +254,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     }
 
     # 3. level allowed for the trait
-    level_bad = per_trait["level_ok"] == False  # noqa: E712 - elementwise on an object array
+    level_bad = (name_traits["level_ok"].to_numpy(dtype=object) == False)[name_codes]  # noqa: E712
     fate.reject(
         level_bad,
         RejectReason.LEVEL_NOT_ALLOWED,
@@ -255,41 +270,38 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             f"no taxon name in column '{mapping.context['taxon']}'",
         )
 
-    # 5. statistic
-    hints = per_name["statistic_hint"]
-    declared = Coded.of(cells["statistic"])  # worked out once per distinct spelling
+    # 5. statistic, as an index into STATISTIC_CODES (-1: none given): declared spellings are
+    # worked out once each, hints once per name
+    declared = Coded.of(cells["statistic"])
     known = np.array([_statistic_code(t) for t in declared.texts], dtype=object)
     given = np.array([isinstance(t, str) and t.strip() != "" for t in declared.texts], dtype=bool)
-    statistic = known[declared.codes]
-    unknown_stat = (given & pd.isna(known))[declared.codes]
     fate.reject(
-        unknown_stat,
+        (given & pd.isna(known))[declared.codes],
         RejectReason.UNKNOWN_STATISTIC,
         lambda at: [
             f"unknown statistic '{s}'; use one of {', '.join(STATISTIC_CODES)}"
             for s in declared.texts[declared.codes[at]]
         ],
     )
-    statistic = np.where(pd.isna(statistic), hints, statistic)
+    stat = _statistic_index(known)[declared.codes]
+    stat = np.where(stat >= 0, stat, _statistic_index(name_table["statistic_hint"])[name_codes])
     assumed_mean = np.zeros(count, dtype=bool)
     if mapping.level == "individual":
-        not_value = ~pd.isna(statistic) & (statistic != "value")
         fate.reject(
-            not_value,
+            (stat >= 0) & (stat != _VALUE),
             RejectReason.UNKNOWN_STATISTIC,
             lambda at: [
                 f"statistic '{s}' in an individual-level source: declare level: population"
-                for s in statistic[at]
+                for s in _STATISTIC_ARRAY[stat[at]]
             ],
         )
-        statistic = np.full(count, "value", dtype=object)
+        stat = np.full(count, _VALUE, dtype=np.int8)
     else:
-        assumed = pd.isna(statistic)
-        statistic = np.where(assumed, "mean", statistic)
-        assumed_mean = assumed & ~np.isin(kind, ["category", "text"])
+        assumed = stat < 0
+        stat = np.where(assumed, _MEAN, stat)
+        assumed_mean = assumed & ~is_category
 
     # 6. category traits
-    is_category = np.isin(kind, ["category", "text"])
     text_values = np.full(count, None, dtype=object)
     if is_category.any():
         cleaned, _ = values.parse_categories(cells["raw_value"], missing=mapping.read.missing)
@@ -319,72 +331,72 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # 8. units: effective unit text and where it came from
     declared_coded = _blank_to_none(cells["raw_unit"])
     cell_coded = _blank_to_none(pd.Series(parsed.unit_in_cell, dtype=object))
-    hint_coded = name_coded.map(name_table["unit_hint"].to_numpy(dtype=object))
-    declared_unit, cell_unit = declared_coded.values(), cell_coded.values()
-    hint_unit = per_name["unit_hint"]
+    hint_texts = name_table["unit_hint"].to_numpy(dtype=object)
+    has_declared = pd.notna(declared_coded.texts)[declared_coded.codes]
+    has_cell = pd.notna(cell_coded.texts)[cell_coded.codes]
+    has_hint = pd.notna(hint_texts)[name_codes]
     unit_coded = choose(
-        [pd.notna(declared_unit), pd.notna(cell_unit)], [declared_coded, cell_coded], hint_coded
+        [has_declared, has_cell], [declared_coded, cell_coded], name_coded.map(hint_texts)
     )
-    unit_text = unit_coded.values()
-    unit_origin = np.where(
-        pd.notna(declared_unit),
-        "mapping",
-        np.where(
-            pd.notna(cell_unit),
-            "cell",
-            np.where(pd.notna(hint_unit), "name-hint", "none"),
-        ),
-    )
-    unit_differs = pd.notna(declared_unit) & pd.notna(cell_unit) & (declared_unit != cell_unit)
+    origin = np.select([has_declared, has_cell, has_hint], [0, 1, 2], 3)  # UNIT_ORIGINS
+    unit_differs = np.zeros(count, dtype=bool)
+    both = np.flatnonzero(has_declared & has_cell)
+    if len(both):
+        declared_text = declared_coded.texts[declared_coded.codes[both]]
+        unit_differs[both] = declared_text != cell_coded.texts[cell_coded.codes[both]]
     scale = np.ones(count)
     offset = np.zeros(count)
     conversion_flags = Coded(np.zeros(count, dtype=np.int32), [""])  # text per unit pair
-    needs_unit = numeric & (statistic != "n") & fate.open
-    # a coefficient of variation is unit-free: its unit can only be %, a fraction or none
-    unit_target = np.where(statistic == "cv", "dimensionless", canonical)
+    needs_unit = numeric & (stat != _N) & fate.open
     if needs_unit.any():
-        # one conversion per distinct (unit text, canonical unit) pair, by combined codes
+        # one conversion per distinct (unit text, canonical unit) pair, by combined codes; a
+        # coefficient of variation is unit-free: its unit can only be %, a fraction or none
         index = np.flatnonzero(needs_unit)
-        unit_codes, unit_uniques = pd.factorize(
-            pd.Series(unit_text[index], dtype=object).fillna("\0")
+        text_of_code, unit_texts = pd.factorize(
+            pd.Series(unit_coded.texts, dtype=object), use_na_sentinel=False
         )
-        canon_codes, canon_uniques = pd.factorize(
-            pd.Series(unit_target[index], dtype=object).fillna("\0")
+        canon_of_name, canon_texts = pd.factorize(
+            pd.Series(canonical_by_name, dtype=object), use_na_sentinel=False
         )
-        pair = unit_codes.astype(np.int64) * len(canon_uniques) + canon_codes
+        targets = [*canon_texts, "dimensionless"]
+        target = np.where(stat[index] == _CV, len(canon_texts), canon_of_name[name_codes[index]])
+        pair = text_of_code[unit_coded.codes[index]].astype(np.int64) * len(targets) + target
         pair_codes, pair_uniques = pd.factorize(pair)
-        codes = pair_codes
-        uniques = [
-            (unit_uniques[p // len(canon_uniques)], canon_uniques[p % len(canon_uniques)])
-            for p in pair_uniques
-        ]
+        pair_scale, pair_offset = np.ones(len(pair_uniques)), np.zeros(len(pair_uniques))
+        pair_reason = np.full(len(pair_uniques), None, dtype=object)
+        pair_message = np.full(len(pair_uniques), None, dtype=object)
+        pair_flag = np.zeros(len(pair_uniques), dtype=np.int32)
+        flag_texts = [""]
+        for code, key in enumerate(pair_uniques):
+            raw, canon = unit_texts[key // len(targets)], targets[key % len(targets)]
+            conv = units.conversion(
+                raw if isinstance(raw, str) else None,
+                canon if isinstance(canon, str) else "dimensionless",
+            )
+            if not conv.ok:
+                pair_reason[code], pair_message[code] = conv.reason, conv.message
+                continue
+            pair_scale[code], pair_offset[code] = conv.scale, conv.offset
+            if conv.flags:
+                pair_flag[code] = len(flag_texts)
+                flag_texts.append(";".join(conv.flags))
+        scale[index], offset[index] = pair_scale[pair_codes], pair_offset[pair_codes]
+        conversion_flags.codes[index] = pair_flag[pair_codes]
+        conversion_flags = conversion_flags.map(flag_texts)
+        failed = np.zeros(count, dtype=bool)
+        failed[index] = pd.notna(pair_reason)[pair_codes]
         reason = np.full(count, None, dtype=object)
         message = np.full(count, None, dtype=object)
-        flag_texts = [""]
-        for code, (raw, canon) in enumerate(uniques):
-            conv = units.conversion(
-                None if raw == "\0" else raw, canon if canon != "\0" else "dimensionless"
-            )
-            rows = index[codes == code]
-            if not conv.ok:
-                reason[rows] = conv.reason
-                message[rows] = conv.message
-                continue
-            scale[rows] = conv.scale
-            offset[rows] = conv.offset
-            if conv.flags:
-                conversion_flags.codes[rows] = len(flag_texts)
-                flag_texts.append(";".join(conv.flags))
-        conversion_flags = conversion_flags.map(flag_texts)
-        fate.reject(pd.notna(reason), reason, message)
+        reason[index], message[index] = pair_reason[pair_codes], pair_message[pair_codes]
+        fate.reject(failed, reason, message)
 
     # 9. converted numbers: locations affine, SD/SE by |scale|, variance by scale**2 (never an
     # offset: a spread of temperatures has none), CV by its own unit only, n as is
-    is_spread = np.isin(statistic, SPREAD_STATISTICS)
-    is_n = statistic == "n"
+    is_n = stat == _N
+    is_variance = stat == _VARIANCE
     number = parsed.value
     converted = np.select(
-        [is_n, is_spread, statistic == "variance"],
+        [is_n, (stat == _SD) | (stat == _SE), is_variance],
         [number, number * np.abs(scale), number * scale**2],
         number * scale + offset,
     )
@@ -395,7 +407,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     correction_factor = np.full(count, np.nan)
     as_measured = np.full(count, np.nan)
     # CV is a ratio and n a count: a temperature factor applies to neither
-    is_rate = per_trait["rate"].astype(bool) & numeric & ~is_n & (statistic != "cv")
+    is_rate = name_traits["rate"].to_numpy(dtype=bool)[name_codes] & numeric & ~is_n & (stat != _CV)
     # Correct only where the source declares its measurement temperature; elsewhere rates stay
     # as measured and say so (a flag, not a guess of the temperature).
     uncorrected = np.zeros(count, dtype=bool)
@@ -414,17 +426,15 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             as_measured[here] = converted[here]
             factor = correction.factor(temperature[here])
             # a variance is a squared rate: it takes the factor squared
-            factor = np.where(statistic[here] == "variance", factor**2, factor)
+            factor = np.where(is_variance[here], factor**2, factor)
             correction_factor[here] = factor
-            converted[here] = np.where(
-                statistic[here] == "variance", converted[here] * factor, corrected
-            )
+            converted[here] = np.where(is_variance[here], converted[here] * factor, corrected)
             correction_label[here] = correction.label()
 
     # 11. flags a reviewer should see
-    lo = per_trait["plausible_min"].astype(float)
-    hi = per_trait["plausible_max"].astype(float)
-    location = np.isin(statistic, ("value", "mean", "median"))
+    lo = name_traits["plausible_min"].to_numpy(dtype=float)[name_codes]
+    hi = name_traits["plausible_max"].to_numpy(dtype=float)[name_codes]
+    location = (stat == _VALUE) | (stat == _MEAN) | (stat == _MEDIAN)
     outside = location & numeric & ((converted < lo) | (converted > hi))
     qualifier = np.asarray(parsed.qualifier, dtype=object)
     flags = _join_flags(
@@ -432,7 +442,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         _labelled("qualifier:", qualifier),
         conversion_flags,
         (unit_differs, "cell-unit-differs-from-declared"),
-        (unit_origin == "name-hint", "unit-from-name"),
+        (origin == 2, "unit-from-name"),
         (assumed_mean, "statistic-assumed-mean"),
         (pd.notna(correction_label), "temperature-corrected"),
         (uncorrected, "rate-not-corrected:no-measurement-temperature"),
@@ -441,11 +451,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     written = np.flatnonzero(fate.open)
     taxon_verbatim = Coded.of(cells["taxon_verbatim"])
     taxa = clean_taxon_names(pd.Series(taxon_verbatim.texts, dtype=object), plan.taxon_synonyms)
-    origin_codes = np.select(
-        [numeric & (unit_origin == o) for o in UNIT_ORIGINS[:-1]],
-        list(range(len(UNIT_ORIGINS) - 1)),
-        len(UNIT_ORIGINS) - 1,
-    )
+    origin_codes = np.where(numeric, origin, len(UNIT_ORIGINS) - 1)
     columns = {
         "source_row": cells["source_row"].to_numpy(),
         "column": Coded.of(cells["column"]),
@@ -464,7 +470,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         "original_name": name_coded,
         "original_unit": unit_coded,
         "unit_origin": Coded(origin_codes.astype(np.int32), np.array(UNIT_ORIGINS, dtype=object)),
-        "match_score": per_name["score"].astype(float),
+        "match_score": name_table["score"].to_numpy(dtype=float)[name_codes],
         "measurement_temperature": temperature,
         "temperature_correction": correction_label,
         "flags": flags,
@@ -474,7 +480,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         statistic_cells = pd.DataFrame()
     else:
         individual = pa.table({})
-        columns["statistic"] = statistic
+        columns["statistic"] = _STATISTIC_ARRAY[stat]
         columns["n_raw"] = cells["n_raw"]
         statistic_cells = _rows_of(written, columns)
     return BatchResult(
