@@ -65,6 +65,8 @@ class SourcePlan:
     correction: TemperatureCorrection | None = None
     max_cell_chars: int = 256
     taxon_synonyms: dict[str, str] | None = None
+    # verbatim taxon text -> (cleaned name, qualifier), filled batch by batch
+    taxa_cleaned: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -450,16 +452,16 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
 
     written = np.flatnonzero(fate.open)
     taxon_verbatim = Coded.of(cells["taxon_verbatim"])
-    taxa = clean_taxon_names(pd.Series(taxon_verbatim.texts, dtype=object), plan.taxon_synonyms)
+    taxon, taxon_qualifier = _cleaned_taxa(taxon_verbatim.texts, plan)
     origin_codes = np.where(numeric, origin, len(UNIT_ORIGINS) - 1)
     columns = {
         "source_row": cells["source_row"].to_numpy(),
         "column": Coded.of(cells["column"]),
         "taxon_verbatim": taxon_verbatim,
-        "taxon": taxon_verbatim.map(taxa["taxon"].to_numpy(dtype=object)),
-        "taxon_qualifier": taxon_verbatim.map(taxa["taxon_qualifier"].to_numpy(dtype=object)),
-        **{key: Coded.of(cells[key]) for key in ("sex", "life_stage", "site", "date")},
-        "individual_id": Coded.of(cells["individual_id"]),
+        "taxon": taxon_verbatim.map(taxon),
+        "taxon_qualifier": taxon_verbatim.map(taxon_qualifier),
+        # context passes through as read (Arrow text, or codes for Python-object readers)
+        **{key: cells[key] for key in ("sex", "life_stage", "site", "date", "individual_id")},
         **by_name,
         "value": np.where(numeric, converted, np.nan),
         "value_as_measured": as_measured,
@@ -534,6 +536,22 @@ def _blank_to_none(series: pd.Series) -> Coded:
     coded = Coded.of(series)
     texts = [str(v).strip() if v is not None else None for v in coded.texts]
     return coded.map([t if t else None for t in texts])
+
+
+def _cleaned_taxa(texts: np.ndarray, plan: SourcePlan) -> tuple[np.ndarray, np.ndarray]:
+    """Cleaned name and qualifier per verbatim taxon text, each text parsed once per source
+    (the plan keeps them: batches of one source repeat the same few hundred names)."""
+    cache = plan.taxa_cleaned
+    new = list(dict.fromkeys(t for t in texts if t not in cache))
+    if new:
+        taxa = clean_taxon_names(pd.Series(new, dtype=object), plan.taxon_synonyms)
+        cleaned = zip(taxa["taxon"].to_numpy(dtype=object), taxa["taxon_qualifier"], strict=True)
+        cache.update(zip(new, cleaned, strict=True))
+    pairs = [cache[t] for t in texts]
+    return (
+        np.array([p[0] for p in pairs], dtype=object),
+        np.array([p[1] for p in pairs], dtype=object),
+    )
 
 
 def _correction_for(plan: SourcePlan, term) -> TemperatureCorrection:

@@ -60,10 +60,10 @@ def trait_columns(mapping: Mapping, header: list[str]) -> list[str]:
 # ---------------------------------------------------------------- reshaping
 
 
-def _clean_text(values: pd.Series, missing: set[str] | None = None) -> Coded:
-    """Stripped text, None where blank or a missing-value token, as codes into the distinct
-    texts: a site or species column repeats a few names millions of times, so cells carry
-    codes, never a Python string each. Arrow-backed text is cleaned by Arrow compute."""
+def _clean_text(values: pd.Series, missing: set[str] | None = None) -> pd.Series | Coded:
+    """Stripped text, missing where blank or a missing-value token. Arrow-backed text is
+    cleaned by Arrow compute and stays Arrow text (it is taken into the output as it is);
+    Python objects are cleaned once per distinct text and carried as codes."""
     if isinstance(values.dtype, pd.StringDtype | pd.ArrowDtype):
         text = pa.array(values, from_pandas=True)
         if isinstance(text, pa.ChunkedArray):
@@ -72,7 +72,8 @@ def _clean_text(values: pd.Series, missing: set[str] | None = None) -> Coded:
         blank = pc.equal(text, "")
         if missing:
             blank = pc.or_(blank, pc.is_in(text, value_set=pa.array(sorted(missing), pa.string())))
-        return Coded.of(pc.if_else(blank, pa.scalar(None, pa.string()), text))
+        cleaned = pc.if_else(blank, pa.scalar(None, pa.string()), text)
+        return pa.table({"text": cleaned}).to_pandas()["text"]  # wraps the Arrow text
     # Python objects (numbers among text, as some readers hand them over): once per distinct
     coded = Coded.of(values)
     stripped = pd.Series(coded.texts, dtype=object).map(
@@ -84,8 +85,10 @@ def _clean_text(values: pd.Series, missing: set[str] | None = None) -> Coded:
     return coded.map(np.where(blank.to_numpy(), None, stripped.to_numpy(dtype=object)))
 
 
-def _context_arrays(mapping: Mapping, frame: pd.DataFrame) -> dict[str, Coded | np.ndarray]:
-    out: dict[str, Coded | np.ndarray] = {}
+def _context_arrays(
+    mapping: Mapping, frame: pd.DataFrame
+) -> dict[str, pd.Series | Coded | np.ndarray]:
+    out: dict[str, pd.Series | Coded | np.ndarray] = {}
     missing = set(mapping.read.missing)
     for key, target in CONTEXT_COLUMNS.items():
         column = mapping.context.get(key)
@@ -110,7 +113,7 @@ def _cell_frame(columns: dict[str, np.ndarray | pd.Series | Coded], length: int)
         if isinstance(values, Coded):
             out[name] = pd.Series(values.categorical(), index=index)
         elif isinstance(values, pd.Series):
-            out[name] = pd.Series(values.to_numpy(), index=index, dtype=values.dtype)
+            out[name] = pd.Series(values.array, index=index)  # no copy of Arrow text
         else:
             out[name] = pd.Series(values, index=index, dtype=values.dtype)
     return pd.DataFrame(out, index=index)
@@ -140,6 +143,8 @@ def _wide_cells(
     for key, values in context.items():  # the same row context for every trait column
         if isinstance(values, Coded):
             pieces[key] = values.tile(len(columns))
+        elif isinstance(values, pd.Series):
+            pieces[key] = pd.concat([values] * len(columns), ignore_index=True)
         else:
             pieces[key] = np.tile(values, len(columns))
     return _cell_frame(pieces, count * len(columns))[list(CELL_COLUMNS)]

@@ -167,7 +167,9 @@ def individual_rows(table: pa.Table, source_id: str) -> pa.Table:
         table = table.take(pa.array(np.argsort(rows, kind="stable")))
     ids = record_ids_of_table(table, source_id)
     table = table.drop_columns(["column"])
-    table = table.append_column("source_id", pa.array(np.full(len(table), source_id), pa.string()))
+    table = table.append_column(
+        "source_id", pa.repeat(pa.scalar(source_id, pa.string()), len(table))
+    )
     table = table.append_column("record_id", ids)
     return prepare_table(table, tables.INDIVIDUAL_VALUES)
 
