@@ -16,7 +16,7 @@ records. Only an unsafe path raises; everything else comes back as `ValidationPr
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -55,8 +55,16 @@ _CSV_TYPES = {
 }
 
 
-def check_package_arrow(folder: Path, *, max_errors: int = 1000) -> ValidationResult:
-    """Validate the package in `folder` column-wise (see the module docstring)."""
+def check_package_arrow(
+    folder: Path,
+    *,
+    max_errors: int = 1000,
+    streamed: Mapping[str, ResourceCheck] | None = None,
+) -> ValidationResult:
+    """Validate the package in `folder` column-wise (see the module docstring).
+
+    `streamed` holds checks a build already ran on resources as it wrote them (Parquet only);
+    those resources are not read back unless a problem must be located in the file."""
     folder = Path(folder)
     check_paths(folder)
     descriptor = load_descriptor(folder)
@@ -66,7 +74,11 @@ def check_package_arrow(folder: Path, *, max_errors: int = 1000) -> ValidationRe
     for resource in resources:
         if len(problems) >= max_errors:
             break
-        problems += _check_resource(folder, resource, by_name, max_errors - len(problems))
+        check = (streamed or {}).get(resource.get("name"))
+        if check is not None and check.matches(resource):
+            problems += check.finish(folder, resource, by_name)
+        else:
+            problems += _check_resource(folder, resource, by_name, max_errors - len(problems))
     return ValidationResult(valid=not problems, problems=tuple(problems[:max_errors]))
 
 
@@ -111,42 +123,151 @@ def _check_resource(
     if not path.is_file():
         return [problem(name, "scheme-error", f"file {resource.get('path')!r} not found")]
     problems = size_and_hash(name, path, resource)
-    schema = _schema(resource)
-    fields = [f for f in schema.get("fields", []) if isinstance(f, dict) and "name" in f]
-    declared = [f["name"] for f in fields]
-    missing_values = schema.get("missingValues", [""])
-    primary_key = as_list(schema.get("primaryKey"))
-    foreign = [_ForeignKey(folder, name, key, by_name) for key in schema.get("foreignKeys") or []]
-    key_hashes: list[np.ndarray] = []
-    offset = 0
+    check = ResourceCheck(resource, limit)
+    foreign = [_ForeignKey(folder, name, key, by_name) for key in check.foreign_keys]
     try:
         for batch in iter_batches(folder, resource):
-            if offset == 0:
-                problems += _label_problems(name, batch.schema.names, declared)
-                if problems:
-                    return problems[:limit]
-            for field in fields:
-                if len(problems) >= limit:
-                    break
-                column = pa.chunked_array([batch.column(field["name"])])
-                found = check_column(name, field, column, missing_values, primary_key, limit)
-                problems += [_shifted(p, offset) for p in found]
-            if primary_key:
-                key_hashes.append(_key_hashes(batch, primary_key))
-            for key in foreign:
-                problems += key.orphans(batch, offset, limit - len(problems))
-            offset += batch.num_rows
-            if len(problems) >= limit:
-                return problems[:limit]
+            check.add(batch, foreign)
+            if check.done:
+                break
     except (pa.ArrowInvalid, pa.ArrowTypeError, OSError) as error:
         text = str(error).splitlines()[0]
-        return problems + [problem(name, "type-error", f"cannot read as declared ({text})")]
-    if primary_key and key_hashes:
-        suspects = _repeated_hash_rows(np.concatenate(key_hashes))
-        if len(suspects):
-            keys = _rows_of_keys(folder, resource, primary_key, suspects)
-            problems += _duplicate_keys(name, keys, primary_key, limit)
-    return problems[:limit]
+        return (
+            problems
+            + check.problems
+            + [problem(name, "type-error", f"cannot read as declared ({text})")]
+        )
+    return (problems + check.finish(folder, resource, by_name))[:limit]
+
+
+class ResourceCheck:
+    """The column-wise checks of one resource, fed its rows batch by batch: read from its
+    file (`check_package_arrow`), or in a build straight from the writer as it writes them,
+    so that a large table is checked without being read back."""
+
+    def __init__(self, resource: dict[str, Any], limit: int = 1000) -> None:
+        self.name = str(resource.get("name", ""))
+        self.schema = _schema(resource)
+        self.fields = [
+            f for f in self.schema.get("fields", []) if isinstance(f, dict) and "name" in f
+        ]
+        self.declared = [f["name"] for f in self.fields]
+        self.missing_values = self.schema.get("missingValues", [""])
+        self.primary_key = as_list(self.schema.get("primaryKey"))
+        self.foreign_keys = [k for k in self.schema.get("foreignKeys") or [] if isinstance(k, dict)]
+        self.limit = limit
+        self.problems: list[ValidationProblem] = []
+        self.rows = 0
+        self.source_rows: Counter[str] = Counter()  # rows per source_id (the accounting)
+        self._key_hashes: list[np.ndarray] = []
+        # streamed: distinct values of each one-column foreign key, checked at the end
+        self._child_values: dict[str, list[pa.Array]] = {}
+        self.streamed = False  # rows came without their referenced tables (from a build)
+
+    @property
+    def done(self) -> bool:
+        return len(self.problems) >= self.limit
+
+    def matches(self, resource: dict[str, Any]) -> bool:
+        """Whether the written resource declares, for every check, the schema this check was
+        run against (names, types, constraints and keys; descriptions and units aside)."""
+        return _checked_parts(_schema(resource)) == _checked_parts(self.schema)
+
+    def add(
+        self, batch: pa.RecordBatch | pa.Table, foreign: list[_ForeignKey] | None = None
+    ) -> None:
+        """Check a batch of rows; `foreign` are keys whose referenced rows are already known
+        (reading a package); without them one-column keys are gathered for `finish`."""
+        if self.done:
+            self.rows += batch.num_rows
+            return
+        if self.rows == 0:
+            self.problems += _label_problems(self.name, batch.schema.names, self.declared)
+            if self.problems:
+                self.limit = len(self.problems)  # wrong columns: nothing else is meaningful
+                return
+        for field in self.fields:
+            if self.done:
+                break
+            column = batch.column(field["name"])
+            if isinstance(column, pa.Array):
+                column = pa.chunked_array([column])
+            found = check_column(
+                self.name, field, column, self.missing_values, self.primary_key, self.limit
+            )
+            self.problems += [_shifted(p, self.rows) for p in found]
+        if self.primary_key:
+            self._key_hashes.append(_key_hashes(batch, self.primary_key))
+        if "source_id" in batch.schema.names:
+            for item in pc.value_counts(batch.column("source_id")).to_pylist():
+                self.source_rows[str(item["values"])] += item["counts"]
+        if foreign is not None:
+            for key in foreign:
+                self.problems += key.orphans(batch, self.rows, self.limit - len(self.problems))
+        else:
+            self.streamed = True
+            for key in self.foreign_keys:
+                fields = as_list(key.get("fields"))
+                if len(fields) == 1:
+                    values = pc.unique(pc.cast(batch.column(fields[0]), pa.string()))
+                    self._child_values.setdefault(fields[0], []).append(values)
+        self.rows += batch.num_rows
+
+    def finish(
+        self, folder: Path, resource: dict[str, Any], by_name: dict[Any, dict[str, Any]]
+    ) -> list[ValidationProblem]:
+        """The checks that need every row: repeated keys and, for streamed rows, foreign keys
+        (the referenced tables are written last). Rows are read from the file only to locate
+        a problem already found."""
+        problems = list(self.problems)
+        if self.streamed and self.foreign_keys and len(problems) < self.limit:
+            problems += self._streamed_foreign_keys(folder, resource, by_name)
+        if self.primary_key and self._key_hashes and len(problems) < self.limit:
+            suspects = _repeated_hash_rows(np.concatenate(self._key_hashes))
+            if len(suspects):
+                keys = _rows_of_keys(folder, resource, self.primary_key, suspects)
+                problems += _duplicate_keys(self.name, keys, self.primary_key, self.limit)
+        return problems[: self.limit]
+
+    def _streamed_foreign_keys(
+        self, folder: Path, resource: dict[str, Any], by_name: dict[Any, dict[str, Any]]
+    ) -> list[ValidationProblem]:
+        foreign = [_ForeignKey(folder, self.name, key, by_name) for key in self.foreign_keys]
+        settled = all(
+            key.problem is None
+            and key.parent_values is not None
+            and len(key.fields) == 1
+            and _all_known(self._child_values.get(key.fields[0], []), key.parent_values)
+            for key in foreign
+        )
+        if settled:
+            return []
+        # an unknown value (or a key of several columns): find the rows in the written file
+        problems: list[ValidationProblem] = []
+        offset = 0
+        for batch in iter_batches(folder, resource):
+            for key in foreign:
+                problems += key.orphans(batch, offset, self.limit - len(problems))
+            offset += batch.num_rows
+        return problems
+
+
+def _checked_parts(schema: dict[str, Any]) -> tuple:
+    fields = [
+        (f.get("name"), f.get("type"), repr(f.get("constraints")))
+        for f in schema.get("fields", [])
+        if isinstance(f, dict)
+    ]
+    keys = (schema.get("missingValues"), schema.get("primaryKey"), schema.get("foreignKeys"))
+    return (fields, repr(keys))
+
+
+def _all_known(children: list[pa.Array], parents: pa.Array) -> bool:
+    for values in children:
+        known = pc.is_in(values.drop_null(), value_set=parents)
+        if pc.all(known).as_py() is False:
+            return False
+    return True
 
 
 def _key_hashes(batch: pa.RecordBatch, columns: list[str]) -> np.ndarray:
@@ -255,6 +376,8 @@ class _ForeignKey:
         self.target_fields = as_list(reference.get("fields"))
         self.problem: ValidationProblem | None = None
         self.parent: pd.MultiIndex | None = None
+        # one-column keys (trait_id, source_id) are checked in Arrow, per distinct child value
+        self.parent_values: pa.Array | None = None
         if target is None or len(self.fields) != len(self.target_fields):
             message = f"foreign key {self.fields} names a missing resource or mismatched fields"
             self.problem = problem(name, "schema-error", message, field=",".join(self.fields))
@@ -268,8 +391,6 @@ class _ForeignKey:
             self.problem = problem(name, "source-error", message, field=",".join(self.fields))
             return
         parent = pa.concat_tables(parts) if parts else None
-        # one-column keys (trait_id, source_id) are checked in Arrow, per distinct child value
-        self.parent_values: pa.Array | None = None
         if parent is not None and len(self.target_fields) == 1:
             column = pc.cast(parent.column(self.target_fields[0]), pa.string())
             self.parent_values = pc.unique(column.combine_chunks()).drop_null()
@@ -326,10 +447,13 @@ def _as_text(table: pa.Table, columns: list[str]) -> pd.DataFrame:
 # --- the data model's own promise -----------------------------------------------------------
 
 
-def accounting_problems(folder: Path) -> list[ValidationProblem]:
+def accounting_problems(
+    folder: Path, value_rows: Mapping[str, int] | None = None
+) -> list[ValidationProblem]:
     """The cell accounting, checked on the written files: for every source, cells = written +
     rejected + empty; its rows in `rejects` number cells_rejected; for individual-level
-    sources, its rows in `individual_values` number values_written."""
+    sources, its rows in `individual_values` number values_written (`value_rows`: those
+    counts as a streamed check found them, instead of reading the values back)."""
     folder = Path(folder)
     descriptor = load_descriptor(folder)
     by_name = {r.get("name"): r for r in descriptor.get("resources") or [] if isinstance(r, dict)}
@@ -341,7 +465,11 @@ def accounting_problems(folder: Path) -> list[ValidationProblem]:
             list(iter_batches(folder, by_name[tables.SOURCES.name]))
         ).to_pandas()
         rejected = _count_by_source(folder, by_name[tables.REJECTS.name])
-        values = _count_by_source(folder, by_name[tables.INDIVIDUAL_VALUES.name])
+        values = (
+            Counter(value_rows)
+            if value_rows is not None
+            else _count_by_source(folder, by_name[tables.INDIVIDUAL_VALUES.name])
+        )
     except (pa.ArrowInvalid, pa.ArrowTypeError, OSError, KeyError) as error:
         return [problem("", "package-error", f"cannot read the accounting ({error})")]
     problems = []

@@ -21,7 +21,7 @@ from pathlib import Path
 import pandas as pd
 
 from harmonize import __version__, publish, sources, tables
-from harmonize.arrow_validate import accounting_problems, check_package_arrow
+from harmonize.arrow_validate import ResourceCheck, accounting_problems, check_package_arrow
 from harmonize.changes import ChangeReport, compare_packages, report_text
 from harmonize.errors import BuildError, SourceNotFoundError
 from harmonize.incremental import SourceCache, default_cache_folder, source_key
@@ -35,7 +35,7 @@ from harmonize.ingest import (
     read_source,
 )
 from harmonize.lookup_tables import unit_texts  # the same unit texts the values carry
-from harmonize.package import PackageInfo, ResourceWriter, write_package
+from harmonize.package import PackageInfo, ResourceWriter, schema_descriptor, write_package
 from harmonize.package_validate import ValidationResult, validate_package
 from harmonize.project import Mapping, Project
 from harmonize.vocab import Vocabulary
@@ -310,7 +310,18 @@ def build_project(
         staging = publish.new_staging_folder(output)
         writer = None
         try:
-            writer = ResourceWriter(tables.INDIVIDUAL_VALUES, staging, project.output_format)
+            # a Parquet package's values are checked as they are written, not read back
+            streamed = (
+                ResourceCheck(_descriptor_of(tables.INDIVIDUAL_VALUES))
+                if project.output_format == "parquet"
+                else None
+            )
+            writer = ResourceWriter(
+                tables.INDIVIDUAL_VALUES,
+                staging,
+                project.output_format,
+                observe=streamed.add if streamed is not None else None,
+            )
             sink = ValueSink(writer, keep_rows=SMALL_PACKAGE_ROWS)
             gathered = _gather(project, sink, progress, cache, full, inputs)
             values_file, writer = writer.close(), None
@@ -334,7 +345,7 @@ def build_project(
             flushing = publish.flush_in_background(staging)
             small = values_file.rows <= SMALL_PACKAGE_ROWS
             run_frictionless = small if frictionless is None else frictionless
-            validation = _validate(staging, run_frictionless)
+            validation = _validate(staging, run_frictionless, streamed)
             if progress:
                 progress("validated", {"valid": validation.valid, "frictionless": run_frictionless})
             if not validation.valid:
@@ -409,10 +420,20 @@ def _package_info(project: Project, vocabulary: Vocabulary) -> PackageInfo:
     )
 
 
-def _validate(folder: Path, frictionless: bool) -> ValidationResult:
-    """Column-wise checks and the cell accounting always; frictionless row by row on request."""
-    problems = list(check_package_arrow(folder).problems)
-    problems += accounting_problems(folder)
+def _descriptor_of(resource: tables.Resource) -> dict:
+    return {"name": resource.name, "schema": schema_descriptor(resource)}
+
+
+def _validate(
+    folder: Path, frictionless: bool, streamed: ResourceCheck | None = None
+) -> ValidationResult:
+    """Column-wise checks and the cell accounting always; frictionless row by row on request.
+
+    `streamed` is the check run on the individual values as they were written."""
+    checked = {tables.INDIVIDUAL_VALUES.name: streamed} if streamed is not None else None
+    problems = list(check_package_arrow(folder, streamed=checked).problems)
+    value_rows = streamed.source_rows if streamed is not None and not streamed.done else None
+    problems += accounting_problems(folder, value_rows)
     if frictionless:
         seen = set(problems)
         problems += [p for p in validate_package(folder).problems if p not in seen]

@@ -20,7 +20,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -315,13 +315,22 @@ class ResourceWriter:
     (`row_order`); the writer neither sorts nor holds more than one row group of rows.
     """
 
-    def __init__(self, resource: data_model.Resource, folder: Path, fmt: str) -> None:
+    def __init__(
+        self,
+        resource: data_model.Resource,
+        folder: Path,
+        fmt: str,
+        observe: Callable[[pa.Table], None] | None = None,
+    ) -> None:
+        """`observe`, if given, sees every Parquet table as it is written (the build checks
+        large outputs that way instead of reading them back)."""
         if fmt not in _FORMATS:
             raise ConfigError(
                 f"unknown package format {fmt!r}", hint=f"use one of: {', '.join(_FORMATS)}"
             )
         self.resource = resource
         self.fmt = fmt
+        self.observe = observe
         self.name = f"{resource.name}.{fmt}"
         self.path = Path(folder) / self.name
         self.rows = 0
@@ -367,6 +376,8 @@ class ResourceWriter:
             table = _with_dates(frame, self.resource, self._schema)
         else:
             table = _arrow_table(frame, self.resource, self._schema)
+        if self.observe is not None:
+            self.observe(table)
         self._pending.append(table)
         self._pending_rows += len(frame)
         if self._pending_rows >= PARQUET_ROW_GROUP_ROWS:
@@ -476,6 +487,24 @@ def _field_descriptor(
     return field
 
 
+def schema_descriptor(
+    resource: data_model.Resource, units: Mapping[str, str] | None = None
+) -> dict[str, object]:
+    """The Table Schema of a resource as `datapackage.json` states it."""
+    units = units or {}
+    schema: dict[str, object] = {
+        "fields": [_field_descriptor(resource, c, units.get(c.name)) for c in resource.columns],
+        "missingValues": list(MISSING_VALUES),
+        "primaryKey": list(resource.primary_key),
+    }
+    if resource.foreign_keys:
+        schema["foreignKeys"] = [
+            {"fields": list(fields), "reference": {"resource": target, "fields": list(keys)}}
+            for fields, target, keys in resource.foreign_keys
+        ]
+    return schema
+
+
 def _resource_descriptor(
     resource: data_model.Resource, written: WrittenFile, units: Mapping[str, str]
 ) -> dict[str, object]:
@@ -494,17 +523,7 @@ def _resource_descriptor(
         descriptor["encoding"] = "utf-8"
         descriptor["bytes"] = written.size
         descriptor["hash"] = f"sha256:{written.sha256}"
-    schema: dict[str, object] = {
-        "fields": [_field_descriptor(resource, c, units.get(c.name)) for c in resource.columns],
-        "missingValues": list(MISSING_VALUES),
-        "primaryKey": list(resource.primary_key),
-    }
-    if resource.foreign_keys:
-        schema["foreignKeys"] = [
-            {"fields": list(fields), "reference": {"resource": target, "fields": list(keys)}}
-            for fields, target, keys in resource.foreign_keys
-        ]
-    descriptor["schema"] = schema
+    descriptor["schema"] = schema_descriptor(resource, units)
     return descriptor
 
 

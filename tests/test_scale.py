@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import importlib.util
 import shutil
+from collections import Counter
 from pathlib import Path
 
 import pandas as pd
@@ -20,9 +21,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from harmonize import build, tables
-from harmonize.arrow_validate import accounting_problems, check_package_arrow
+from harmonize.arrow_validate import ResourceCheck, accounting_problems, check_package_arrow
 from harmonize.build import build_project, build_tables
-from harmonize.package import PackageInfo, write_package
+from harmonize.package import PackageInfo, schema_descriptor, write_package
 from harmonize.package_validate import validate_package
 from harmonize.project import load_project
 
@@ -189,6 +190,27 @@ def test_arrow_validation_finds_a_planted_duplicate_key_and_orphan(demo_frames, 
         ("individual_values", "primary-key", duplicate_row, "record_id"),
         ("individual_values", "foreign-key", orphan_row, "trait_id"),
     }
+
+
+def test_values_checked_as_written_give_the_problems_reading_back_gives(demo_frames, tmp_path):
+    # A build checks a Parquet package's values as the writer writes them, then looks only at
+    # the small tables; the problems (type, row, field) must be those of reading the file back.
+    frames, duplicate_row, orphan_row = _planted(demo_frames)
+    write_package(frames, tmp_path, INFO, fmt="parquet")
+    read_back = check_package_arrow(tmp_path).problems
+    check = ResourceCheck(
+        {"name": "individual_values", "schema": schema_descriptor(tables.INDIVIDUAL_VALUES)}
+    )
+    for batch in pq.read_table(tmp_path / "individual_values.parquet").to_batches(7):
+        check.add(batch)  # in pieces, as a streamed build hands them over
+    streamed = check_package_arrow(tmp_path, streamed={"individual_values": check}).problems
+    assert streamed == read_back
+    assert {(p.type, p.row) for p in streamed} == {
+        ("primary-key", duplicate_row),
+        ("foreign-key", orphan_row),
+    }
+    written = pq.read_table(tmp_path / "individual_values.parquet")["source_id"].to_pylist()
+    assert dict(check.source_rows) == dict(Counter(written))
 
 
 def test_arrow_validation_agrees_with_frictionless_on_the_same_csv_package(demo_frames, tmp_path):
