@@ -21,7 +21,7 @@ from harmonize.match import NameMatch
 from harmonize.project import STATISTICS, Mapping
 from harmonize.taxa import clean_taxon_names
 from harmonize.temperature import TemperatureCorrection, correct_rates, temperature_problems
-from harmonize.text_columns import Coded, choose, column_to_arrow, objects_to_arrow
+from harmonize.text_columns import Coded, choose, join_per_row, rows_frame, rows_table
 from harmonize.vocab import Vocabulary
 
 # Statistic spellings met in long tables and column names -> our statistic codes.
@@ -75,48 +75,6 @@ class BatchResult:
     statistic_cells: pd.DataFrame  # population cells, one row per accepted statistic cell
     rejects: pd.DataFrame
     empty: int
-
-
-def _join_flags(*parts: np.ndarray | Coded | tuple[np.ndarray, str]) -> Coded:
-    """Join per-row flags with ';', skipping blanks (None where a row has none). A part is an array of texts ('' or None
-    for no flag) or a (mask, text) pair: the text where the mask is true.
-
-    Each part has few distinct texts, so rows are coded by their combination of texts and the
-    joined string is built once per distinct combination, not once per row.
-    """
-    count = len(parts[0][0] if isinstance(parts[0], tuple) else parts[0]) if parts else 0
-    combined = np.zeros(count, dtype=np.int64)
-    texts: list[np.ndarray] = []
-    codes_per_part: list[np.ndarray] = []
-    for part in parts:
-        if isinstance(part, tuple):
-            mask, text = part
-            codes, uniques = np.asarray(mask, dtype=np.int64), np.array(["", text], dtype=object)
-        elif isinstance(part, Coded):
-            used, codes = np.unique(part.codes, return_inverse=True)
-            uniques = np.array([t or "" for t in part.texts[used]], dtype=object)
-            codes = codes.reshape(-1)
-        else:
-            codes, uniques = pd.factorize(pd.Series(part, dtype=object).fillna(""))
-            uniques = np.asarray(uniques, dtype=object)
-        if len(uniques) <= 1 and (len(uniques) == 0 or uniques[0] == ""):
-            continue  # no flag from this part in this batch
-        texts.append(uniques)
-        codes_per_part.append(codes)
-        # re-factorise after each part so the combined code stays small
-        combined, _ = pd.factorize(combined * len(uniques) + codes)
-    _, first, inverse = np.unique(combined, return_index=True, return_inverse=True)
-    joined = [
-        ";".join(
-            t
-            for t in (text[codes[row]] for text, codes in zip(texts, codes_per_part, strict=True))
-            if t
-        )
-        for row in first
-    ]
-    return Coded(
-        inverse.reshape(-1).astype(np.int32), np.array([j or None for j in joined], dtype=object)
-    )
 
 
 def _labelled(prefix: str, values: np.ndarray) -> Coded:
@@ -439,7 +397,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     location = (stat == _VALUE) | (stat == _MEAN) | (stat == _MEDIAN)
     outside = location & numeric & ((converted < lo) | (converted > hi))
     qualifier = np.asarray(parsed.qualifier, dtype=object)
-    flags = _join_flags(
+    flags = join_per_row(
         (outside, "outside-plausible-range"),
         _labelled("qualifier:", qualifier),
         conversion_flags,
@@ -478,57 +436,19 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         "flags": flags,
     }
     if mapping.level == "individual":
-        individual = _table_of(written, columns)
+        individual = rows_table(written, columns)
         statistic_cells = pd.DataFrame()
     else:
         individual = pa.table({})
         columns["statistic"] = _STATISTIC_ARRAY[stat]
         columns["n_raw"] = cells["n_raw"]
-        statistic_cells = _rows_of(written, columns)
+        statistic_cells = rows_frame(written, columns)
     return BatchResult(
         individual=individual,
         statistic_cells=statistic_cells,
         rejects=fate.rejected(),
         empty=int(empty.sum()),
     )
-
-
-Column = np.ndarray | Coded | pd.Series
-
-
-def _rows_of(rows: np.ndarray, columns: dict[str, Column]) -> pd.DataFrame:
-    """A frame of the given rows of each column; text as Python objects (None for missing),
-    for the population summaries' pandas stage."""
-    out = {}
-    for name, column in columns.items():
-        if isinstance(column, Coded):
-            taken = column.take(rows).values()
-        elif isinstance(column, pd.Series):
-            taken = column.to_numpy(dtype=object)[rows]
-            taken = np.where(pd.isna(taken), None, taken)
-        else:
-            taken = np.asarray(column)[rows]
-        if taken.dtype.kind in "US":  # numpy fixed-width text from np.where
-            taken = taken.astype(object)
-        out[name] = pd.Series(taken, dtype=taken.dtype)
-    return pd.DataFrame(out)
-
-
-def _table_of(rows: np.ndarray, columns: dict[str, Column]) -> pa.Table:
-    """An Arrow table of the given rows of each column: numbers as they are, text by codes
-    (`text_columns`), never a Python string per cell."""
-    indices = pa.array(rows)
-    out = {}
-    for name, column in columns.items():
-        if isinstance(column, Coded):
-            out[name] = column.take(rows).arrow()
-        elif isinstance(column, pd.Series):
-            out[name] = column_to_arrow(column).take(indices)
-        elif column.dtype == object or column.dtype.kind in "US":
-            out[name] = objects_to_arrow(column[rows])
-        else:
-            out[name] = pa.array(column[rows], from_pandas=True)  # NaN: missing
-    return pa.table(out)
 
 
 def _blank_to_none(series: pd.Series) -> Coded:
