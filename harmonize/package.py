@@ -179,9 +179,14 @@ def prepare_table(table: pa.Table, resource: data_model.Resource) -> pa.Table:
     for column in resource.columns:
         kind = pa.string() if column.type == "date" else _ARROW_TYPES[column.type]
         if column.name in table.column_names:
-            array = table[column.name].combine_chunks().cast(kind)
+            array = table[column.name]
+            array = array.chunk(0) if array.num_chunks == 1 else array.combine_chunks()
+            if array.type != kind:
+                array = array.cast(kind)
             if column.type in ("string", "date"):
-                array = pc.if_else(pc.equal(array, ""), pa.scalar(None, pa.string()), array)
+                empty = pc.equal(array, "")
+                if pc.any(empty).as_py():  # copied only when an empty string is there
+                    array = pc.if_else(empty, pa.scalar(None, pa.string()), array)
         else:
             array = pa.nulls(len(table), type=kind)
         arrays.append(array)
