@@ -39,7 +39,7 @@ class HarmonizeError(Exception):
             where.append(f"row {self.row}")
         if self.column:
             where.append(f"column '{self.column}'")
-        text = (": ".join([", ".join(where), self.message]) if where else self.message)
+        text = ": ".join([", ".join(where), self.message]) if where else self.message
         if self.hint:
             text += f" ({self.hint})"
         return text
