@@ -291,20 +291,21 @@ RECORD_ID_COLUMNS = (
 
 
 def record_ids(frame: pd.DataFrame, source: str) -> np.ndarray:
-    """Stable 16-hex ids from source, row, trait and context (vectorised hashing, no per-row calls)."""
+    """Stable 16-hex ids from source, row, trait and context: `record_ids_of_table` of the
+    frame's columns as text."""
     columns = [c for c in RECORD_ID_COLUMNS if c in frame.columns]
-    basis = frame[columns].astype(str)
-    basis.insert(0, "source_id", source)
-    return hex_hashes(pd.util.hash_pandas_object(basis, index=False).to_numpy())
+    basis = pa.Table.from_pandas(frame[columns].astype(str), preserve_index=False)
+    return record_ids_of_table(basis, source).to_numpy(zero_copy_only=False).astype(object)
 
 
 def record_ids_of_table(table: pa.Table, source: str) -> pa.Array:
-    """`record_ids` of an Arrow table, the same ids, as an Arrow text column.
+    """Stable 16-hex ids from source, row, trait and context, as an Arrow text column.
 
-    `record_ids` hashes each column's text with pandas (`hash_pandas_object`), which hashes a
-    text column by its distinct texts and combines the columns like a tuple hash. This does
-    the same from Arrow: each distinct value is turned into text and hashed once, and its hash
-    taken by code, so no Python string is made per cell (except the row numbers).
+    Each id is pandas' `hash_pandas_object` of the row's texts (source first, then
+    RECORD_ID_COLUMNS, each as `astype(str)` makes it), which hashes a text column by its
+    distinct texts and combines the columns like a tuple hash. Here each distinct value is
+    turned into text and hashed once, and its hash taken by code, so no Python string is made
+    per cell (except the row numbers).
     """
     count = len(table)
     hashed = [np.full(count, _text_hashes(np.array([source], dtype=object))[0], dtype=np.uint64)]
@@ -349,7 +350,7 @@ def _combine_hashes(arrays: list[np.ndarray]) -> np.ndarray:
 
 
 def _hex_arrow(hashes: np.ndarray) -> pa.Array:
-    """uint64 hashes -> 16-character hex texts, as `hex_hashes` writes them, built in Arrow."""
+    """uint64 hashes -> 16-character lower-case hex texts, built in Arrow (no loop per value)."""
     raw = np.ascontiguousarray(hashes.astype(">u8")).tobytes().hex().encode("ascii")
     fixed = pa.FixedSizeBinaryArray.from_buffers(
         pa.binary(16), len(hashes), [None, pa.py_buffer(raw)]
@@ -359,10 +360,3 @@ def _hex_arrow(hashes: np.ndarray) -> pa.Array:
 
 # pandas' default key for `hash_pandas_object` (pandas.core.util.hashing)
 _PANDAS_HASH_KEY = "0123456789123456"
-
-
-def hex_hashes(hashes: np.ndarray) -> np.ndarray:
-    """uint64 hashes -> 16-character lower-case hex strings, without a Python loop per value."""
-    raw = np.ascontiguousarray(hashes.astype(">u8")).view("S8")
-    hexed = np.frombuffer(raw.tobytes().hex().encode("ascii"), dtype="S16")
-    return hexed.astype(str).astype(object)
