@@ -42,16 +42,11 @@ STATISTIC_ALIASES = {
     "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
 }  # fmt: skip
 STATISTIC_CODES = STATISTICS
-LOCATION_STATISTICS = ("value", "mean", "min", "max", "median", "q1", "q3", "ci_low", "ci_high")
-SPREAD_STATISTICS = ("sd", "se")
+SPREAD_STATISTICS = ("sd", "se")  # convert by |scale|, never with an offset
+# the statistics a trait's plausible range applies to
+CENTRAL_STATISTICS = ("value", "mean", "median")
 
 UNIT_ORIGINS = ("mapping", "cell", "name-hint", "none")  # the last: no unit, or not a number
-INDIVIDUAL_OUTPUT = (
-    "source_row", "taxon_verbatim", "taxon", "taxon_qualifier", "sex", "life_stage", "site", "date",
-    "individual_id", "trait_id", "role", "unit", "ucum", "value", "value_text", "qualifier",
-    "original_value", "original_name", "original_unit", "unit_origin", "match_method", "match_score",
-    "measurement_temperature", "temperature_correction", "flags", "column",
-)  # fmt: skip
 
 
 @dataclass
@@ -100,9 +95,11 @@ def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.
 
 _STATISTIC_ARRAY = np.array(STATISTIC_CODES, dtype=object)
 _STATISTIC_INDEX = {code: i for i, code in enumerate(STATISTIC_CODES)}
-_VALUE, _MEAN, _MEDIAN, _N, _CV, _SD, _SE, _VARIANCE = (
-    _STATISTIC_INDEX[c] for c in ("value", "mean", "median", "n", "cv", "sd", "se", "variance")
+_VALUE, _MEAN, _N, _CV, _VARIANCE = (
+    _STATISTIC_INDEX[c] for c in ("value", "mean", "n", "cv", "variance")
 )
+_SPREAD = [_STATISTIC_INDEX[c] for c in SPREAD_STATISTICS]
+_CENTRAL = [_STATISTIC_INDEX[c] for c in CENTRAL_STATISTICS]
 
 
 def _statistic_index(codes) -> np.ndarray:
@@ -289,8 +286,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     fate.reject(parse_failed, parsed.reason, parsed.message)
 
     # 8. units: effective unit text and where it came from
-    declared_coded = _blank_to_none(cells["raw_unit"])
-    cell_coded = _blank_to_none(pd.Series(parsed.unit_in_cell, dtype=object))
+    declared_coded = Coded.of(cells["raw_unit"]).cleaned()
+    cell_coded = Coded.of(parsed.unit_in_cell).cleaned()
     hint_texts = name_table["unit_hint"].to_numpy(dtype=object)
     has_declared = pd.notna(declared_coded.texts)[declared_coded.codes]
     has_cell = pd.notna(cell_coded.texts)[cell_coded.codes]
@@ -356,7 +353,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     is_variance = stat == _VARIANCE
     number = parsed.value
     converted = np.select(
-        [is_n, (stat == _SD) | (stat == _SE), is_variance],
+        [is_n, np.isin(stat, _SPREAD), is_variance],
         [number, number * np.abs(scale), number * scale**2],
         number * scale + offset,
     )
@@ -394,7 +391,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # 11. flags a reviewer should see
     lo = name_traits["plausible_min"].to_numpy(dtype=float)[name_codes]
     hi = name_traits["plausible_max"].to_numpy(dtype=float)[name_codes]
-    location = (stat == _VALUE) | (stat == _MEAN) | (stat == _MEDIAN)
+    location = np.isin(stat, _CENTRAL)
     outside = location & numeric & ((converted < lo) | (converted > hi))
     qualifier = np.asarray(parsed.qualifier, dtype=object)
     flags = join_per_row(
@@ -449,13 +446,6 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         rejects=fate.rejected(),
         empty=int(empty.sum()),
     )
-
-
-def _blank_to_none(series: pd.Series) -> Coded:
-    """Stripped text, None where blank; worked out once per distinct text."""
-    coded = Coded.of(series)
-    texts = [str(v).strip() if v is not None else None for v in coded.texts]
-    return coded.map([t if t else None for t in texts])
 
 
 def _cleaned_taxa(texts: np.ndarray, plan: SourcePlan) -> tuple[np.ndarray, np.ndarray]:

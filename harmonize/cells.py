@@ -75,14 +75,7 @@ def _clean_text(values: pd.Series, missing: set[str] | None = None) -> pd.Series
         cleaned = pc.if_else(blank, pa.scalar(None, pa.string()), text)
         return pa.table({"text": cleaned}).to_pandas()["text"]  # wraps the Arrow text
     # Python objects (numbers among text, as some readers hand them over): once per distinct
-    coded = Coded.of(values)
-    stripped = pd.Series(coded.texts, dtype=object).map(
-        lambda v: v if v is None else str(v).strip()
-    )
-    blank = stripped.isna() | (stripped == "")
-    if missing:
-        blank |= stripped.isin(missing)
-    return coded.map(np.where(blank.to_numpy(), None, stripped.to_numpy(dtype=object)))
+    return Coded.of(values).cleaned(frozenset(missing or ()))
 
 
 def _context_arrays(

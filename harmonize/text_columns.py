@@ -132,6 +132,12 @@ class Coded:
         """The same codes into other texts, one per distinct text (e.g. each text cleaned)."""
         return Coded(self.codes, np.asarray(texts, dtype=object))
 
+    def cleaned(self, missing: set[str] | frozenset[str] = frozenset()) -> Coded:
+        """The same codes into stripped texts, None where a text is blank or a missing-value
+        token; worked out once per distinct text."""
+        stripped = [None if t is None else str(t).strip() for t in self.texts]
+        return self.map([None if not t or t in missing else t for t in stripped])
+
     def take(self, rows: np.ndarray) -> Coded:
         return Coded(self.codes[rows], self._texts, self.distinct, arrow=self._arrow)
 
@@ -169,26 +175,24 @@ class Coded:
         return pd.Categorical.from_codes(merged[self.codes], categories=categories)
 
 
+def _end_to_end(parts: list[Coded]) -> tuple[list[np.ndarray], np.ndarray]:
+    """Each part's codes shifted into the texts of all parts laid end to end, and those texts."""
+    offsets = np.cumsum([0, *(len(p.texts) for p in parts)])
+    codes = [p.codes.astype(np.int64) + o for p, o in zip(parts, offsets, strict=False)]
+    return codes, np.concatenate([p.texts for p in parts]).astype(object)
+
+
 def choose(conditions: list[np.ndarray], choices: list[Coded], default: Coded) -> Coded:
     """Per cell, the first choice whose condition holds, else the default (like `np.select`),
-    without leaving codes: the texts of all choices are laid end to end."""
-    offsets = np.cumsum([0, *(len(c.texts) for c in choices)])
-    codes = np.select(
-        conditions,
-        [c.codes.astype(np.int64) + offset for c, offset in zip(choices, offsets, strict=False)],
-        default.codes.astype(np.int64) + offsets[-1],
-    )
-    texts = np.concatenate([*(c.texts for c in choices), default.texts])
-    return Coded(codes.astype(np.int32), texts.astype(object))
+    without leaving codes."""
+    codes, texts = _end_to_end([*choices, default])
+    return Coded(np.select(conditions, codes[:-1], codes[-1]).astype(np.int32), texts)
 
 
 def concat(parts: list[Coded]) -> Coded:
     """Columns end to end (e.g. the pieces of a wide table, one per trait column)."""
-    offsets = np.cumsum([0, *(len(p.texts) for p in parts)])
-    codes = np.concatenate(
-        [p.codes.astype(np.int64) + o for p, o in zip(parts, offsets, strict=False)]
-    )
-    return Coded(codes.astype(np.int32), np.concatenate([p.texts for p in parts]).astype(object))
+    codes, texts = _end_to_end(parts)
+    return Coded(np.concatenate(codes).astype(np.int32), texts)
 
 
 def objects_to_arrow(values: np.ndarray) -> pa.Array:
