@@ -162,11 +162,12 @@ class ResourceCheck:
         self._key_hashes: list[np.ndarray] = []
         # streamed: distinct values of each one-column foreign key, checked at the end
         self._child_values: dict[str, list[pa.Array]] = {}
+        self.stopped = False
         self.streamed = False  # rows came without their referenced tables (from a build)
 
     @property
     def done(self) -> bool:
-        return len(self.problems) >= self.limit
+        return self.stopped or len(self.problems) >= self.limit
 
     def matches(self, resource: dict[str, Any]) -> bool:
         """Whether the written resource declares, for every check, the schema this check was
@@ -184,7 +185,7 @@ class ResourceCheck:
         if self.rows == 0:
             self.problems += _label_problems(self.name, batch.schema.names, self.declared)
             if self.problems:
-                self.limit = len(self.problems)  # wrong columns: nothing else is meaningful
+                self.stopped = True  # wrong columns: nothing else is meaningful
                 return
         for field in self.fields:
             if self.done:
@@ -220,6 +221,8 @@ class ResourceCheck:
         (the referenced tables are written last). Rows are read from the file only to locate
         a problem already found."""
         problems = list(self.problems)
+        if self.stopped:
+            return problems
         if self.streamed and self.foreign_keys and len(problems) < self.limit:
             problems += self._streamed_foreign_keys(folder, resource, by_name)
         if self.primary_key and self._key_hashes and len(problems) < self.limit:
@@ -410,7 +413,7 @@ class _ForeignKey:
         if self.parent_values is not None and len(self.fields) == 1:
             column = pc.cast(batch.column(self.fields[0]), pa.string())
             distinct = pc.unique(column).drop_null()  # a missing cell is not checked
-            if pc.all(pc.is_in(distinct, value_set=self.parent_values)).as_py() is not False:
+            if _all_known([distinct], self.parent_values):
                 return []  # every value known: the common case, settled without Python
         child = _as_text(pa.Table.from_batches([batch]), self.fields)
         complete = child.notna().all(axis=1).to_numpy()  # a missing foreign-key cell is not checked
