@@ -1,10 +1,14 @@
-"""Shared test fixtures and hooks: an independent UCUM reader; the bad-input catalogue count."""
+"""Shared test fixtures and hooks: an independent UCUM reader, the benchmark's table generator,
+the bad-input catalogue count."""
 
 from __future__ import annotations
 
+import importlib.util
 from pathlib import Path
 
 import pytest
+
+REPO = Path(__file__).resolve().parents[1]
 
 
 @pytest.fixture(scope="session")
@@ -23,6 +27,17 @@ def ucumvert_reader():
         return transformer.transform(ucumvert.parse_ucum(code, parser))
 
     return reference, read
+
+
+@pytest.fixture(scope="session")
+def long_table_generator():
+    """benchmarks/make_long_table.py as a module (a script, not part of the package)."""
+    spec = importlib.util.spec_from_file_location(
+        "make_long_table", REPO / "benchmarks" / "make_long_table.py"
+    )
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
 
 
 BAD_INPUT_TEST = "test_bad_inputs.py::test_bad_input["

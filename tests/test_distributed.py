@@ -10,7 +10,6 @@ and the invented demo. Equality is checked on the written files byte for byte, e
 
 from __future__ import annotations
 
-import importlib.util
 import shutil
 from pathlib import Path
 
@@ -41,15 +40,6 @@ def client():
         yield connected
 
 
-def _generator():
-    spec = importlib.util.spec_from_file_location(
-        "make_long_table", REPO / "benchmarks" / "make_long_table.py"
-    )
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module
-
-
 def _same_package(single: Path, partitioned: Path) -> None:
     names = sorted(p.name for p in single.iterdir())
     assert names == sorted(p.name for p in partitioned.iterdir())
@@ -68,9 +58,11 @@ def _same_package(single: Path, partitioned: Path) -> None:
 
 
 @pytest.mark.parametrize("scheduler", ["cluster", "threads"])
-def test_long_table_on_dask_equals_the_single_machine_build(tmp_path, request, scheduler):
+def test_long_table_on_dask_equals_the_single_machine_build(
+    tmp_path, request, scheduler, long_table_generator
+):
     root = tmp_path / "project"
-    _generator().write_project(root, 30_000, seed=11, partitions=5, fmt="parquet")
+    long_table_generator.write_project(root, 30_000, seed=11, partitions=5, fmt="parquet")
     (root / "harmonize.yaml").write_text(
         (root / "harmonize.yaml").read_text(encoding="utf-8") + "limits: {batch_rows: 4000}\n",
         encoding="utf-8",

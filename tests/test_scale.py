@@ -11,7 +11,6 @@ must report the same rows as our pyarrow checks. No timings here: speed lives in
 
 from __future__ import annotations
 
-import importlib.util
 import shutil
 from collections import Counter
 from pathlib import Path
@@ -44,15 +43,6 @@ INFO = PackageInfo(
 )
 
 
-def _generator():
-    spec = importlib.util.spec_from_file_location(
-        "make_long_table", REPO / "benchmarks" / "make_long_table.py"
-    )
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module
-
-
 def _with_batch_rows(root: Path, rows: int) -> None:
     project_file = root / "harmonize.yaml"
     text = project_file.read_text(encoding="utf-8")
@@ -65,9 +55,9 @@ def large_is_small(monkeypatch):
 
 
 @pytest.fixture(scope="module")
-def long_project(tmp_path_factory) -> Path:
+def long_project(tmp_path_factory, long_table_generator) -> Path:
     root = tmp_path_factory.mktemp("scale") / "long"
-    _generator().write_project(root, ROWS, seed=7, fmt="parquet")
+    long_table_generator.write_project(root, ROWS, seed=7, fmt="parquet")
     _with_batch_rows(root, BATCH_ROWS)
     return root
 
