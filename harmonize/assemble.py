@@ -78,21 +78,6 @@ def _labelled(prefix: str, values: np.ndarray) -> Coded:
     return coded.map([f"{prefix}{t}" if t else "" for t in coded.texts])
 
 
-def _reject_frame(cells: pd.DataFrame, mask: np.ndarray, reason, message) -> pd.DataFrame:
-    chosen = cells.loc[mask]
-    return pd.DataFrame(
-        {
-            "source_row": chosen["source_row"].to_numpy(),
-            "column": chosen["column"].to_numpy(),
-            "original_name": chosen["original_name"].to_numpy(),
-            "raw_value": _excerpt(chosen["raw_value"]),
-            "raw_unit": chosen["raw_unit"].to_numpy(),
-            "reason": np.asarray(reason, dtype=object)[mask] if np.ndim(reason) else str(reason),
-            "message": np.asarray(message, dtype=object)[mask] if np.ndim(message) else message,
-        }
-    )
-
-
 _STATISTIC_ARRAY = np.array(STATISTIC_CODES, dtype=object)
 _STATISTIC_INDEX = {code: i for i, code in enumerate(STATISTIC_CODES)}
 _VALUE, _MEAN, _N, _CV, _VARIANCE = (
@@ -113,41 +98,64 @@ def _statistic_code(text: object) -> str | None:
     return STATISTIC_ALIASES.get(text.strip().lower()) if isinstance(text, str) else None
 
 
+REJECT_COLUMNS = ("source_row", "column", "original_name", "raw_value", "raw_unit", "reason", "message")  # fmt: skip
+
+
 class _Fate:
-    """Tracks which cells are still undecided; each decision removes cells from the pool."""
+    """Tracks which cells are still undecided; each decision removes cells from the pool.
+
+    Rejected cells are noted by position and made into one rejects frame at the end (in the
+    order they were rejected)."""
 
     def __init__(self, cells: pd.DataFrame) -> None:
         self.cells = cells
         self.open = np.ones(len(cells), dtype=bool)
-        self.rejects: list[pd.DataFrame] = []
+        self._rejected: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
 
     def reject(self, mask: np.ndarray, reason, message) -> None:
-        """Reject the still-open cells in `mask`; `message` is text, a per-cell array, or a
-        function of the rejected cells' positions (so messages are only built where needed)."""
+        """Reject the still-open cells in `mask`; `reason` and `message` are text or per-cell
+        arrays; `message` may be a function of the rejected cells' positions (so messages are
+        only built where needed)."""
         mask = mask & self.open
-        if mask.any():
-            if callable(message):
-                full = np.full(len(mask), None, dtype=object)
-                positions = np.flatnonzero(mask)
-                full[positions] = message(positions)
-                message = full
-            self.rejects.append(_reject_frame(self.cells, mask, reason, message))
-            self.open &= ~mask
+        positions = np.flatnonzero(mask)
+        if not len(positions):
+            return
+        self._rejected.append(
+            (positions, _per_cell(reason, positions, str), _per_cell(message, positions))
+        )
+        self.open &= ~mask
 
     def rejected(self) -> pd.DataFrame:
-        if not self.rejects:
-            return pd.DataFrame(
-                columns=[
-                    "source_row",
-                    "column",
-                    "original_name",
-                    "raw_value",
-                    "raw_unit",
-                    "reason",
-                    "message",
-                ]
-            )
-        return pd.concat(self.rejects, ignore_index=True)
+        if not self._rejected:
+            return pd.DataFrame(columns=list(REJECT_COLUMNS))
+        positions, reasons, messages = (
+            np.concatenate(p) for p in zip(*self._rejected, strict=True)
+        )
+        chosen = self.cells.take(positions)
+        return pd.DataFrame(
+            {
+                "source_row": chosen["source_row"].to_numpy(),
+                "column": chosen["column"].to_numpy(),
+                "original_name": chosen["original_name"].to_numpy(),
+                "raw_value": _excerpt(chosen["raw_value"]),
+                "raw_unit": chosen["raw_unit"].to_numpy(),
+                "reason": reasons,
+                "message": messages,
+            }
+        )
+
+
+def _per_cell(given, positions: np.ndarray, scalar=lambda text: text) -> np.ndarray:
+    """The rejected cells' reasons or messages from text (`scalar` of it for every cell), a
+    per-cell array of all cells, or a function of the rejected cells' positions."""
+    out = np.empty(len(positions), dtype=object)
+    if callable(given) and not isinstance(given, str):
+        out[:] = given(positions)
+    elif np.ndim(given):
+        out[:] = np.asarray(given, dtype=object)[positions]
+    else:
+        out[:] = scalar(given)
+    return out
 
 
 def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:

@@ -16,7 +16,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from harmonize import values
+from harmonize import siphash, values
 from harmonize.errors import RejectReason
 from harmonize.project import Mapping
 from harmonize.stats import (
@@ -322,11 +322,18 @@ def _text_hashes(texts: np.ndarray) -> np.ndarray:
 def _column_hashes(column: pa.Array) -> np.ndarray:
     """Per cell, pandas' hash of the cell's text (`astype(str)`; missing cells stay missing)."""
     if pa.types.is_integer(column.type) and column.null_count == 0:
+        numbers = column.to_numpy()
+        if siphash.fits_decimal(numbers):  # the same hash without a string per number
+            return _pandas_finish(siphash.decimal_siphash(numbers, _PANDAS_KEY_WORDS))
         return _text_hashes(pc.cast(column, pa.string()).to_numpy(zero_copy_only=False))
     if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
-        encoded = pc.dictionary_encode(column)
-        codes = pc.fill_null(encoded.indices, -1).to_numpy(zero_copy_only=False)
-        texts = encoded.dictionary.to_numpy(zero_copy_only=False).astype(object)
+        column = pc.dictionary_encode(column)
+    if pa.types.is_dictionary(column.type) and pa.types.is_string(column.type.value_type):
+        codes = pc.fill_null(column.indices, -1).to_numpy(zero_copy_only=False)
+        texts = column.dictionary.fill_null("").to_numpy(zero_copy_only=False).astype(object)
+        if column.dictionary.null_count:  # a missing text in the dictionary: a missing cell
+            missing = np.append(column.dictionary.is_null().to_numpy(zero_copy_only=False), True)
+            codes = np.where(missing[codes], -1, codes)  # code -1 takes the appended True
     else:
         codes, distinct = pd.factorize(column.to_numpy(zero_copy_only=False))
         as_text = pd.Series(distinct).astype(str)  # the text pandas gives each value
@@ -360,3 +367,14 @@ def _hex_arrow(hashes: np.ndarray) -> pa.Array:
 
 # pandas' default key for `hash_pandas_object` (pandas.core.util.hashing)
 _PANDAS_HASH_KEY = "0123456789123456"
+_PANDAS_KEY_WORDS = siphash.key_words(_PANDAS_HASH_KEY.encode("utf8"))
+
+
+def _pandas_finish(hashes: np.ndarray) -> np.ndarray:
+    """The mixing `pandas.util.hash_array` applies to each SipHash value (in place)."""
+    hashes ^= hashes >> np.uint64(30)
+    hashes *= np.uint64(0xBF58476D1CE4E5B9)
+    hashes ^= hashes >> np.uint64(27)
+    hashes *= np.uint64(0x94D049BB133111EB)
+    hashes ^= hashes >> np.uint64(31)
+    return hashes

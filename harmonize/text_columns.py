@@ -154,9 +154,21 @@ class Coded:
             return pc.take(self._arrow, pa.array(self.codes))
         codes, texts = self.codes, self.texts
         if len(texts) > len(codes):  # a slice of a batch: convert only the texts it uses
-            used, codes = np.unique(codes, return_inverse=True)
+            used, codes = used_codes(codes, len(texts))
             texts = texts[used]
         return pc.take(_texts_to_arrow(texts), pa.array(codes.reshape(-1)))
+
+    def dictionary(self) -> pa.DictionaryArray:
+        """The column as an Arrow dictionary array: its codes into its texts, no text copied
+        per cell. Texts a shorter column (a slice of a batch) does not use are left out."""
+        codes = self.codes.reshape(-1)
+        if self.text_count > len(codes):
+            used, codes = used_codes(codes, self.text_count)
+            texts = self._arrow.take(pa.array(used)) if self._arrow is not None else None
+            texts = texts if texts is not None else _texts_to_arrow(self.texts[used])
+        else:
+            texts = self._arrow if self._arrow is not None else _texts_to_arrow(self.texts)
+        return pa.DictionaryArray.from_arrays(pa.array(codes, pa.int32()), texts)
 
     def categorical(self) -> pd.Categorical:
         """The column as a pandas categorical (repeated texts merged, None missing)."""
@@ -229,6 +241,13 @@ def column_to_arrow(column: pd.Series | np.ndarray | Coded | pa.Array) -> pa.Arr
     return objects_to_arrow(column)
 
 
+def used_codes(codes: np.ndarray, count: int) -> tuple[np.ndarray, np.ndarray]:
+    """The codes (of `count` possible) that occur, ascending, and each cell's position among
+    them: `np.unique(codes, return_inverse=True)` by counting instead of sorting."""
+    present = np.bincount(codes.reshape(-1), minlength=count) > 0
+    return np.flatnonzero(present), (np.cumsum(present) - 1)[codes.reshape(-1)]
+
+
 def join_per_row(*parts: np.ndarray | Coded | tuple[np.ndarray, str]) -> Coded:
     """Join per-row flags with ';', skipping blanks (None where a row has none). A part is an array of texts ('' or None
     for no flag) or a (mask, text) pair: the text where the mask is true.
@@ -245,9 +264,8 @@ def join_per_row(*parts: np.ndarray | Coded | tuple[np.ndarray, str]) -> Coded:
             mask, text = part
             codes, uniques = np.asarray(mask, dtype=np.int64), np.array(["", text], dtype=object)
         elif isinstance(part, Coded):
-            used, codes = np.unique(part.codes, return_inverse=True)
+            used, codes = used_codes(part.codes, part.text_count)
             uniques = np.array([t or "" for t in part.texts[used]], dtype=object)
-            codes = codes.reshape(-1)
         else:
             codes, uniques = pd.factorize(pd.Series(part, dtype=object).fillna(""))
             uniques = np.asarray(uniques, dtype=object)
@@ -257,7 +275,10 @@ def join_per_row(*parts: np.ndarray | Coded | tuple[np.ndarray, str]) -> Coded:
         codes_per_part.append(codes)
         # re-factorise after each part so the combined code stays small
         combined, _ = pd.factorize(combined * len(uniques) + codes)
-    _, first, inverse = np.unique(combined, return_index=True, return_inverse=True)
+    # factorised codes number combinations in order of first appearance: each code's first row
+    # is where the running maximum first reaches it
+    reached = np.maximum.accumulate(combined)
+    first = np.flatnonzero(np.diff(reached, prepend=-1) > 0)
     joined = [
         ";".join(
             t
@@ -266,9 +287,7 @@ def join_per_row(*parts: np.ndarray | Coded | tuple[np.ndarray, str]) -> Coded:
         )
         for row in first
     ]
-    return Coded(
-        inverse.reshape(-1).astype(np.int32), np.array([j or None for j in joined], dtype=object)
-    )
+    return Coded(combined.astype(np.int32), np.array([j or None for j in joined], dtype=object))
 
 
 Column = np.ndarray | Coded | pd.Series
@@ -293,13 +312,13 @@ def rows_frame(rows: np.ndarray, columns: dict[str, Column]) -> pd.DataFrame:
 
 
 def rows_table(rows: np.ndarray, columns: dict[str, Column]) -> pa.Table:
-    """An Arrow table of the given rows of each column: numbers as they are, text by codes
-    (`text_columns`), never a Python string per cell."""
+    """An Arrow table of the given rows of each column: numbers as they are, coded text as
+    dictionary arrays, never a Python string per cell."""
     indices = pa.array(rows)
     out = {}
     for name, column in columns.items():
-        if isinstance(column, Coded):
-            out[name] = column.take(rows).arrow()
+        if isinstance(column, Coded):  # decoded to text by `package.prepare_table`
+            out[name] = column.take(rows).dictionary()
         elif isinstance(column, pd.Series):
             out[name] = column_to_arrow(column).take(indices)
         elif column.dtype == object or column.dtype.kind in "US":

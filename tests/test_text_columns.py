@@ -14,7 +14,15 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from harmonize.summaries import RECORD_ID_COLUMNS, record_ids, record_ids_of_table
-from harmonize.text_columns import Coded, choose, column_to_arrow, concat, objects_to_arrow
+from harmonize.text_columns import (
+    Coded,
+    choose,
+    column_to_arrow,
+    concat,
+    join_per_row,
+    objects_to_arrow,
+    used_codes,
+)
 
 TEXTS = st.one_of(st.none(), st.sampled_from(["", "a", " a", "Sorex minutus", "µm", "é"]))
 
@@ -66,6 +74,12 @@ def test_a_slice_converts_only_the_texts_it_uses():
     coded = Coded.of(np.array([f"id-{i}" for i in range(1000)], dtype=object))
     rows = np.array([999, 3, 3])
     assert coded.take(rows).arrow().to_pylist() == ["id-999", "id-3", "id-3"]
+    dictionary = coded.take(rows).dictionary()
+    assert dictionary.dictionary.to_pylist() == ["id-3", "id-999"]
+    assert dictionary.to_pylist() == ["id-999", "id-3", "id-3"]
+    from_arrow = Coded.of(pa.array([f"id-{i}" for i in range(1000)])).take(rows).dictionary()
+    assert from_arrow.dictionary.to_pylist() == ["id-3", "id-999"]
+    assert from_arrow.to_pylist() == ["id-999", "id-3", "id-3"]
 
 
 @pytest.mark.parametrize(
@@ -74,7 +88,9 @@ def test_a_slice_converts_only_the_texts_it_uses():
 )
 def test_objects_to_arrow_matches_pyarrow(values):
     array = np.array(values, dtype=object)
-    texts = [None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v) for v in values]
+    texts = [
+        None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v) for v in values
+    ]
     assert objects_to_arrow(array).to_pylist() == texts
     assert column_to_arrow(pd.Series(array, dtype=object)).to_pylist() == texts
 
@@ -109,4 +125,44 @@ def test_record_ids_from_arrow_equal_pandas_hashing(seed):
     expected = [f"{h:016x}" for h in pd.util.hash_pandas_object(basis, index=False)]
     assert record_ids_of_table(table, "west-shrews").to_pylist() == expected
     assert list(record_ids(frame, "west-shrews")) == expected  # the pandas frames' route
+    # the assembled batches' route: text as dictionary arrays (codes into texts, missing texts
+    # in the dictionary)
+    coded = {
+        name: Coded.of(frame[name].to_numpy(dtype=object)).dictionary()
+        for name in RECORD_ID_COLUMNS
+        if frame[name].dtype == object
+    }
+    dictionaries = table.drop_columns(list(coded))
+    for name, array in coded.items():
+        dictionaries = dictionaries.append_column(name, array)
+    assert any(array.dictionary.null_count for array in coded.values())
+    assert record_ids_of_table(dictionaries, "west-shrews").to_pylist() == expected
     assert len(set(expected)) == len(frame)  # the row number alone makes each id distinct
+
+
+@given(st.lists(st.integers(min_value=0, max_value=6), max_size=60))
+def test_used_codes_are_numpy_unique(codes):
+    # reference: numpy's own unique with inverse
+    codes = np.array(codes, dtype=np.int32)
+    used, inverse = used_codes(codes, 7)
+    expected_used, expected_inverse = np.unique(codes, return_inverse=True)
+    assert used.tolist() == expected_used.tolist()
+    assert inverse.tolist() == expected_inverse.reshape(-1).tolist()
+
+
+FLAGS = st.sampled_from(["", "unit-assumed", "sd-estimated", None])
+
+
+@given(
+    st.lists(st.tuples(FLAGS, FLAGS, st.booleans()), max_size=40),
+)
+def test_join_per_row_equals_joining_each_row(rows):
+    # reference: the plain per-row join the vectorised one replaces
+    first = np.array([r[0] for r in rows], dtype=object)
+    second = Coded.of(np.array([r[1] for r in rows], dtype=object))
+    mask = np.array([r[2] for r in rows], dtype=bool)
+    joined = join_per_row(first, second, (mask, "qualifier:<"))
+    expected = [
+        ";".join(t for t in (a, b, "qualifier:<" if m else "") if t) or None for a, b, m in rows
+    ]
+    assert list(joined.values()) == expected
