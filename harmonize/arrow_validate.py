@@ -276,10 +276,40 @@ def _all_known(children: list[pa.Array], parents: pa.Array) -> bool:
 def _key_hashes(batch: pa.RecordBatch, columns: list[str]) -> np.ndarray:
     """A 64-bit hash of each row's key: 8 bytes a row, whatever the key's width."""
     if len(columns) == 1:  # no frame needed for a one-column key (record_id)
-        values = batch.column(columns[0]).to_numpy(zero_copy_only=False)
+        column = batch.column(columns[0])
+        as_number = _hex_key_numbers(column)
+        if as_number is not None:
+            return as_number
+        values = column.to_numpy(zero_copy_only=False)
         return pd.util.hash_array(np.asarray(values, dtype=object), categorize=False)
     frame = pa.Table.from_batches([batch]).select(columns).to_pandas()
     return pd.util.hash_pandas_object(frame, index=False).to_numpy()
+
+
+# ASCII byte -> its value as a lower-case hex digit, 255 for any other byte
+_HEX_DIGITS = np.full(256, 255, dtype=np.uint8)
+_HEX_DIGITS[np.frombuffer(b"0123456789abcdef", dtype=np.uint8)] = np.arange(16, dtype=np.uint8)
+
+
+def _hex_key_numbers(column: pa.Array | pa.ChunkedArray) -> np.ndarray | None:
+    """For a text key whose every cell is 16 lower-case hex digits (record ids), the number
+    each cell writes: one-to-one, so it serves as the key's hash without hashing. None for any
+    other column (the caller hashes it)."""
+    if isinstance(column, pa.ChunkedArray):
+        column = column.combine_chunks()
+    if column.type != pa.string() or column.null_count or not len(column):
+        return None
+    offsets = np.frombuffer(column.buffers()[1], dtype=np.int32)[
+        column.offset : column.offset + len(column) + 1
+    ]
+    if offsets[-1] - offsets[0] != 16 * len(column) or (np.diff(offsets) != 16).any():
+        return None
+    data = np.frombuffer(column.buffers()[2], dtype=np.uint8)[offsets[0] : offsets[-1]]
+    digits = _HEX_DIGITS[data].reshape(-1, 16)
+    if (digits == 255).any():
+        return None
+    packed = (digits[:, 0::2] << 4) | digits[:, 1::2]  # 8 bytes a key, most significant first
+    return np.ascontiguousarray(packed).view(">u8").reshape(-1).astype(np.uint64)
 
 
 def _repeated_hash_rows(hashes: np.ndarray) -> np.ndarray:

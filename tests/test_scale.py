@@ -16,11 +16,19 @@ from collections import Counter
 from pathlib import Path
 
 import pandas as pd
+import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from harmonize import build, tables
-from harmonize.arrow_validate import ResourceCheck, accounting_problems, check_package_arrow
+from harmonize.arrow_validate import (
+    ResourceCheck,
+    _hex_key_numbers,
+    accounting_problems,
+    check_package_arrow,
+)
 from harmonize.build import build_project, build_tables
 from harmonize.package import PackageInfo, schema_descriptor, write_package
 from harmonize.package_validate import validate_package
@@ -243,3 +251,13 @@ def test_progress_reports_the_share_of_the_file_read(long_project, tmp_path):
     fractions = [d["fraction"] for d in batches]
     assert fractions == sorted(fractions) and fractions[-1] == pytest.approx(1.0)
     assert [d["rows"] for d in batches][-1] == ROWS
+
+
+@given(st.lists(st.integers(min_value=0, max_value=2**64 - 1), min_size=1, max_size=50))
+def test_record_id_keys_are_read_as_the_numbers_they_write(numbers):
+    # reference: Python's own int(text, 16); any other text is left to hashing (None)
+    texts = [f"{n:016x}" for n in numbers]
+    assert _hex_key_numbers(pa.array(texts)).tolist() == [int(t, 16) for t in texts]
+    assert _hex_key_numbers(pa.array([*texts, "X" * 16])) is None
+    assert _hex_key_numbers(pa.array([*texts, None])) is None
+    assert _hex_key_numbers(pa.array([*texts, "abc"])) is None
