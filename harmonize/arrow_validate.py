@@ -286,15 +286,11 @@ def _key_hashes(batch: pa.RecordBatch, columns: list[str]) -> np.ndarray:
     return pd.util.hash_pandas_object(frame, index=False).to_numpy()
 
 
-# ASCII byte -> its value as a lower-case hex digit, 255 for any other byte
-_HEX_DIGITS = np.full(256, 255, dtype=np.uint8)
-_HEX_DIGITS[np.frombuffer(b"0123456789abcdef", dtype=np.uint8)] = np.arange(16, dtype=np.uint8)
-
-
 def _hex_key_numbers(column: pa.Array | pa.ChunkedArray) -> np.ndarray | None:
-    """For a text key whose every cell is 16 lower-case hex digits (record ids), the number
-    each cell writes: one-to-one, so it serves as the key's hash without hashing. None for any
-    other column (the caller hashes it)."""
+    """For a text key whose every cell is 16 hex digits (record ids), the number each cell
+    writes, which serves as the key's hash without hashing (one-to-one for lower-case digits;
+    other spellings may collide, and the exact comparison clears a collision). None for any
+    other column: the caller hashes it."""
     if isinstance(column, pa.ChunkedArray):
         column = column.combine_chunks()
     if column.type != pa.string() or column.null_count or not len(column):
@@ -304,17 +300,22 @@ def _hex_key_numbers(column: pa.Array | pa.ChunkedArray) -> np.ndarray | None:
     ]
     if offsets[-1] - offsets[0] != 16 * len(column) or (np.diff(offsets) != 16).any():
         return None
-    data = np.frombuffer(column.buffers()[2], dtype=np.uint8)[offsets[0] : offsets[-1]]
-    digits = _HEX_DIGITS[data].reshape(-1, 16)
-    if (digits == 255).any():
+    data = memoryview(column.buffers()[2])[offsets[0] : offsets[-1]]
+    try:
+        packed = bytes.fromhex(data.tobytes().decode("ascii"))
+    except ValueError:  # not hex (UnicodeDecodeError is a ValueError too)
         return None
-    packed = (digits[:, 0::2] << 4) | digits[:, 1::2]  # 8 bytes a key, most significant first
-    return np.ascontiguousarray(packed).view(">u8").reshape(-1).astype(np.uint64)
+    if len(packed) != 8 * len(column):  # fromhex skips spaces: not 16 digits a cell
+        return None
+    return np.frombuffer(packed, dtype=">u8").astype(np.uint64)
 
 
 def _repeated_hash_rows(hashes: np.ndarray) -> np.ndarray:
     """Rows (0-based) whose key hash occurs more than once: every repeated key is among them
     (a hash collision only adds a row, which the exact comparison then clears)."""
+    ordered = np.sort(hashes)
+    if not (ordered[1:] == ordered[:-1]).any():  # the usual case: no key repeats
+        return np.array([], dtype=np.int64)
     order = np.argsort(hashes, kind="stable")
     ordered = hashes[order]
     same = ordered[1:] == ordered[:-1]

@@ -201,10 +201,24 @@ def _text_lengths(values: pd.Series) -> np.ndarray:
     return distinct[codes]
 
 
+def _bytes_within(values: pd.Series, limit: int) -> bool:
+    """Whether Arrow-backed text has no cell of more than `limit` bytes (read from its offsets,
+    without counting characters); False for anything else."""
+    if values.dtype == object:
+        return False
+    text = pa.array(values, from_pandas=True)
+    if not (pa.types.is_string(text.type) or pa.types.is_large_string(text.type)):
+        return False
+    longest = pc.max(pc.binary_length(text)).as_py()
+    return longest is None or longest <= limit
+
+
 def _refuse_oversized_cells(
     mapping: Mapping, frame: pd.DataFrame, columns: list[str], first_row: int, limits: Limits
 ) -> None:
     for column in columns:
+        if _bytes_within(frame[column], limits.max_cell_chars):
+            continue  # no cell has more bytes, so none has more characters
         lengths = _text_lengths(frame[column])
         over = np.flatnonzero(lengths > limits.max_cell_chars)
         if len(over):

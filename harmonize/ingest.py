@@ -221,7 +221,10 @@ class ValueSink:
         self.rows += len(frame)
         self._source_rows += len(frame)
         if isinstance(frame, pa.Table):
-            traits = pc.unique(frame["trait_id"].combine_chunks()).drop_null().to_pylist()
+            traits = frame["trait_id"].combine_chunks()
+            if pa.types.is_dictionary(traits.type):  # the texts its codes use
+                traits = traits.dictionary.take(pc.unique(traits.indices))
+            traits = pc.unique(traits).drop_null().to_pylist()
         else:
             traits = frame["trait_id"].dropna().unique()
         self.trait_ids.update(str(t) for t in traits)

@@ -171,27 +171,55 @@ def prepare_frame(frame: pd.DataFrame | None, resource: data_model.Resource) -> 
 
 def prepare_table(table: pa.Table, resource: data_model.Resource) -> pa.Table:
     """An Arrow table as `prepare_frame` prepares a frame: the resource's columns in order with
-    their Arrow types (dates still as text: the writer parses them), empty strings missing."""
+    their Arrow types (dates still as text: the writer parses them), empty strings missing.
+
+    A text column given as a dictionary array (codes into texts) stays one: checks work once
+    per text, and the writer decodes it on its own thread (`ResourceWriter`)."""
     extra = set(table.column_names) - set(resource.column_names)
     if extra:
         raise ValueError(f"{resource.name}: unexpected columns {sorted(extra)}")
-    arrays, fields = [], []
+    arrays = []
     for column in resource.columns:
         kind = pa.string() if column.type == "date" else _ARROW_TYPES[column.type]
         if column.name in table.column_names:
             array = table[column.name]
             array = array.chunk(0) if array.num_chunks == 1 else array.combine_chunks()
-            if array.type != kind:
-                array = array.cast(kind)
-            if column.type in ("string", "date"):
-                empty = pc.equal(array, "")
-                if pc.any(empty).as_py():  # copied only when an empty string is there
-                    array = pc.if_else(empty, pa.scalar(None, pa.string()), array)
+            if column.type == "string" and _is_text_dictionary(array):
+                array = pa.DictionaryArray.from_arrays(
+                    array.indices, _empty_to_missing(array.dictionary.cast(pa.string()))
+                )
+            else:
+                if array.type != kind:
+                    array = array.cast(kind)
+                if column.type in ("string", "date"):
+                    array = _empty_to_missing(array)
         else:
             array = pa.nulls(len(table), type=kind)
         arrays.append(array)
-        fields.append(pa.field(column.name, kind))
-    return pa.Table.from_arrays(arrays, schema=pa.schema(fields))
+    return pa.Table.from_arrays(arrays, names=resource.column_names)
+
+
+def _is_text_dictionary(array: pa.Array) -> bool:
+    return pa.types.is_dictionary(array.type) and pa.types.is_string(array.type.value_type)
+
+
+def _empty_to_missing(array: pa.Array) -> pa.Array:
+    empty = pc.equal(array, "")
+    if pc.any(empty).as_py():  # copied only when an empty string is there
+        return pc.if_else(empty, pa.scalar(None, pa.string()), array)
+    return array
+
+
+def decoded(table: pa.Table) -> pa.Table:
+    """The table with dictionary-encoded text columns decoded to plain text."""
+    if not any(_is_text_dictionary(c) for c in table.columns):
+        return table
+    return table.cast(
+        pa.schema(
+            pa.field(f.name, f.type.value_type) if _is_text_dictionary(f) else f
+            for f in table.schema
+        )
+    )
 
 
 # Arrow type -> pandas dtype of a prepared frame (`tables.PANDAS_DTYPES`)
@@ -204,7 +232,7 @@ _PANDAS_OF_ARROW = {
 
 def frame_of_table(table: pa.Table) -> pd.DataFrame:
     """A table from `prepare_table` as the frame `prepare_frame` would have made."""
-    return table.to_pandas(types_mapper=_PANDAS_OF_ARROW.get)
+    return decoded(table).to_pandas(types_mapper=_PANDAS_OF_ARROW.get)
 
 
 def _with_missing_columns(
@@ -298,13 +326,14 @@ def _parse_dates(strings: pa.Array, resource: data_model.Resource, name: str) ->
     return pc.cast(parsed, pa.date32())
 
 
-def _with_dates(table: pa.Table, resource: data_model.Resource, schema: pa.Schema) -> pa.Table:
-    """A prepared table in the written schema: its date columns parsed from their text."""
+def _with_dates(table: pa.Table, resource: data_model.Resource) -> pa.Table:
+    """A prepared table with its date columns parsed from their text (text columns may still
+    be dictionary arrays: the writer's thread decodes them)."""
     arrays = [
         _parse_dates(table[c.name], resource, c.name) if c.type == "date" else table[c.name]
         for c in resource.columns
     ]
-    return pa.Table.from_arrays(arrays, schema=schema)
+    return pa.Table.from_arrays(arrays, names=resource.column_names)
 
 
 def arrow_schema(resource: data_model.Resource) -> pa.Schema:
@@ -378,7 +407,7 @@ class ResourceWriter:
             self._emit(_csv_text(frame, self.resource, header=False))
             return
         if isinstance(frame, pa.Table):
-            table = _with_dates(frame, self.resource, self._schema)
+            table = _with_dates(frame, self.resource)
         else:
             table = _arrow_table(frame, self.resource, self._schema)
         if self.observe is not None:
@@ -389,22 +418,34 @@ class ResourceWriter:
             self._flush(final=False)
 
     def _flush(self, *, final: bool) -> None:
-        table = pa.concat_tables(self._pending) if self._pending else self._schema.empty_table()
-        full = (len(table) // PARQUET_ROW_GROUP_ROWS) * PARQUET_ROW_GROUP_ROWS
-        for start in range(0, full, PARQUET_ROW_GROUP_ROWS):
-            self._write_group(table.slice(start, PARQUET_ROW_GROUP_ROWS))
-        rest = table.slice(full)
-        if final and len(rest):
-            self._write_group(rest)
-            rest = rest.slice(len(rest))
-        self._pending = [rest] if len(rest) else []
-        self._pending_rows = len(rest)
+        """Hand every full row group (and at the end the rest) to the encoder, as the pieces
+        of the tables written that make it up."""
+        while self._pending_rows >= PARQUET_ROW_GROUP_ROWS or (final and self._pending_rows):
+            size = min(PARQUET_ROW_GROUP_ROWS, self._pending_rows)
+            group: list[pa.Table] = []
+            while size:
+                piece = self._pending[0]
+                if len(piece) <= size:
+                    group.append(self._pending.pop(0))
+                else:
+                    group.append(piece.slice(0, size))
+                    self._pending[0] = piece.slice(size)
+                size -= len(group[-1])
+                self._pending_rows -= len(group[-1])
+            self._write_group(group)
 
-    def _write_group(self, table: pa.Table) -> None:
+    def _write_group(self, pieces: list[pa.Table]) -> None:
         # at most two row groups wait for the encoder: memory stays bounded
         while len(self._pending_groups) >= 2:
             self._pending_groups.pop(0).result()
-        self._pending_groups.append(self._encoder.submit(self._parquet.write_table, table))
+        self._pending_groups.append(self._encoder.submit(self._encode, pieces))
+
+    def _encode(self, pieces: list[pa.Table]) -> None:
+        """Write one row group (on the encoder's thread): text dictionaries decoded, pieces
+        joined, encoded and compressed."""
+        schema = self._schema
+        table = pa.concat_tables([p if p.schema == schema else p.cast(schema) for p in pieces])
+        self._parquet.write_table(table)
 
     def _drain(self) -> None:
         try:

@@ -30,7 +30,7 @@ import hashlib
 import json
 import os
 import re
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from copy import deepcopy
 from dataclasses import dataclass, replace
@@ -38,6 +38,7 @@ from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import TYPE_CHECKING, Any
 from urllib.parse import urlparse
 
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
@@ -387,7 +388,25 @@ def _size_and_hash(name: str, path: Path, resource: dict[str, Any]) -> list[Vali
     return problems
 
 
+def _per_text(
+    column: pa.ChunkedArray, mask_of: Callable[[pa.ChunkedArray], pa.ChunkedArray], code_missing
+) -> pa.ChunkedArray:
+    """`mask_of` a dictionary-encoded column, worked out once per distinct text and taken by
+    each cell's code; a cell without a code gets `code_missing`."""
+    chunks = []
+    for chunk in column.chunks:
+        per_text = mask_of(pa.chunked_array([chunk.dictionary])).combine_chunks()
+        per_text = np.append(
+            pc.fill_null(per_text, False).to_numpy(zero_copy_only=False), code_missing
+        )
+        codes = pc.fill_null(chunk.indices, len(per_text) - 1).to_numpy(zero_copy_only=False)
+        chunks.append(pa.array(per_text[codes]))
+    return pa.chunked_array(chunks, type=pa.bool_())
+
+
 def _missing_mask(column: pa.ChunkedArray, missing_values: list[Any]) -> pa.ChunkedArray:
+    if pa.types.is_dictionary(column.type):
+        return _per_text(column, lambda texts: _missing_mask(texts, missing_values), True)
     mask = pc.is_null(column)
     if pa.types.is_floating(column.type):
         # A NaN is what a missing float becomes on its way through pandas; our CSV writes it
@@ -417,11 +436,15 @@ def _check_column(
     limit: int,
 ) -> list[ValidationProblem]:
     name, declared_type = field["name"], field.get("type", "any")
+    stored = column.type.value_type if pa.types.is_dictionary(column.type) else column.type
     is_expected = _TYPE_CHECKS.get(declared_type)
-    if is_expected is not None and not is_expected(column.type):
+    if is_expected is not None and not is_expected(stored):
         message = f'stored as {column.type}, but the schema says "{declared_type}"'
         return [_problem(resource, "type-error", message, field=name)]
     constraints = field.get("constraints") or {}
+    enum = constraints.get("enum")
+    if not (constraints.get("required") or name in primary_key or enum):
+        return []  # the type was all there was to check
     missing = _missing_mask(column, missing_values)
     problems = []
     # A primary-key cell may not be missing either (Table Schema: key fields are implicitly
@@ -431,14 +454,17 @@ def _check_column(
             _problem(resource, "constraint-error", "a value is required", row=i, field=name)
             for i in _first_rows(missing, limit).to_pylist()
         ]
-    enum = constraints.get("enum")
     if isinstance(enum, list) and enum:
         try:
-            allowed = pa.array(enum).cast(column.type)
+            allowed = pa.array(enum).cast(stored)
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
-            message = f"enum {enum} cannot be compared with a {column.type} column"
+            message = f"enum {enum} cannot be compared with a {stored} column"
             return problems + [_problem(resource, "schema-error", message, field=name)]
-        outside = pc.and_(pc.invert(missing), pc.invert(pc.is_in(column, value_set=allowed)))
+        if pa.types.is_dictionary(column.type):
+            known = _per_text(column, lambda texts: pc.is_in(texts, value_set=allowed), False)
+        else:
+            known = pc.is_in(column, value_set=allowed)
+        outside = pc.and_(pc.invert(missing), pc.invert(known))
         indices = _first_rows(outside, limit)
         problems += [
             _problem(
