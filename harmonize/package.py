@@ -441,11 +441,20 @@ class ResourceWriter:
         self._pending_groups.append(self._encoder.submit(self._encode, pieces))
 
     def _encode(self, pieces: list[pa.Table]) -> None:
-        """Write one row group (on the encoder's thread): text dictionaries decoded, pieces
-        joined, encoded and compressed."""
-        schema = self._schema
-        table = pa.concat_tables([p if p.schema == schema else p.cast(schema) for p in pieces])
-        self._parquet.write_table(table)
+        """Write one row group (on the encoder's thread): its pieces joined into one array per
+        column, in the written types (text dictionaries decoded), so the bytes do not depend
+        on how rows were batched; then encoded and compressed."""
+        columns = []
+        for at, field in enumerate(self._schema):
+            chunks = [chunk for piece in pieces for chunk in piece.column(at).chunks]
+            columns.append(
+                pa.concat_arrays(
+                    [c if c.type == field.type else c.cast(field.type) for c in chunks]
+                )
+                if chunks
+                else pa.array([], type=field.type)
+            )
+        self._parquet.write_table(pa.Table.from_arrays(columns, schema=self._schema))
 
     def _drain(self) -> None:
         try:

@@ -31,7 +31,13 @@ from harmonize.arrow_validate import (
     check_package_arrow,
 )
 from harmonize.build import build_project, build_tables
-from harmonize.package import PackageInfo, schema_descriptor, write_package
+from harmonize.package import (
+    PackageInfo,
+    ResourceWriter,
+    prepare_table,
+    schema_descriptor,
+    write_package,
+)
 from harmonize.package_validate import validate_package
 from harmonize.project import load_project
 
@@ -304,3 +310,32 @@ def test_values_checked_as_dictionary_text_give_the_problems_plain_text_gives(
         ("primary-key", duplicate_row, "record_id"),
         ("foreign-key", orphan_row, "trait_id"),
     }
+
+
+def test_parquet_bytes_do_not_depend_on_how_values_arrive(tmp_path):
+    # A row group is written from its pieces joined, so pieces of any size give the same file.
+    # Written piece by piece, columns of many distinct texts (ids, values as written: more
+    # than Parquet's default 1 MiB dictionary page holds) came out in different pages.
+    rows = 140_000
+    ids = [f"{i * 2654435761 % 2**64:016x}" for i in range(rows)]
+    table = prepare_table(
+        pa.table(
+            {
+                "record_id": ids,
+                "source_id": ["s"] * rows,
+                "source_row": list(range(1, rows + 1)),
+                "trait_id": pc.dictionary_encode(pa.array(["body_mass"] * rows)),
+                "original_value": [f"{(i * 7919 % 100_003) / 7:.{i % 5}f}" for i in range(rows)],
+            }
+        ),
+        tables.INDIVIDUAL_VALUES,
+    )
+    written = {}
+    for piece in (rows, 7_001):
+        writer = ResourceWriter(tables.INDIVIDUAL_VALUES, tmp_path, "parquet")
+        for start in range(0, rows, piece):
+            writer.write(table.slice(start, piece))
+        writer.close()
+        written[piece] = (tmp_path / "individual_values.parquet").read_bytes()
+    assert written[rows] == written[7_001]
+    assert pq.read_table(tmp_path / "individual_values.parquet")["record_id"].to_pylist() == ids
