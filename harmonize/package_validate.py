@@ -44,7 +44,6 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
-import requests
 
 if TYPE_CHECKING:
     from frictionless import FrictionlessException
@@ -197,11 +196,18 @@ def _is_parquet(resource: dict[str, Any]) -> bool:
 # --- frictionless (CSV and other text formats) ---------------------------------------------
 
 
-class _NoNetworkSession(requests.Session):
-    """An HTTP session that refuses every request: validation must never touch the network."""
+def _no_network_session() -> Any:
+    """An HTTP session that refuses every request: validation must never touch the network.
+    (requests is imported here, when frictionless is used: a large build never needs it.)"""
+    import requests
 
-    def request(self, method: str | bytes, url: str | bytes, *args: Any, **kwargs: Any) -> Any:
-        raise requests.ConnectionError(f"network access is disabled during validation ({url!r})")
+    class NoNetworkSession(requests.Session):
+        def request(self, method: str | bytes, url: str | bytes, *args: Any, **kwargs: Any):
+            raise requests.ConnectionError(
+                f"network access is disabled during validation ({url!r})"
+            )
+
+    return NoNetworkSession()
 
 
 @contextmanager
@@ -210,7 +216,7 @@ def _hardened_frictionless() -> Iterator[None]:
     # without an exception; entering and leaving it by hand restores them in every case.
     from frictionless import system  # imported when used: large builds never need it
 
-    context = system.use_context(trusted=False, http_session=_NoNetworkSession())
+    context = system.use_context(trusted=False, http_session=_no_network_session())
     context.__enter__()
     try:
         yield
