@@ -72,6 +72,15 @@ class Limits:
     batch_rows: int = 262_144
 
 
+def _positive_whole(value: Any, file: Path, where: str) -> int:
+    number = as_number(value, file, where)
+    if number < 1 or number != int(number):
+        raise ConfigError(
+            f"'{where}' must be a whole number of at least 1, got {value!r}", file=str(file)
+        )
+    return int(number)
+
+
 @dataclass(frozen=True)
 class TemperatureCorrectionSpec:
     method: str
@@ -237,7 +246,7 @@ def load_project(location: Path | str = ".") -> Project:
     limits_data = as_mapping(data.get("limits"), project_file, "limits")
     check_keys(limits_data, LIMIT_KEYS, project_file, "limits")
     limits = Limits(
-        **{k: int(as_number(v, project_file, f"limits.{k}")) for k, v in limits_data.items()}
+        **{k: _positive_whole(v, project_file, f"limits.{k}") for k, v in limits_data.items()}
     )
 
     return Project(
