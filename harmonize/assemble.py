@@ -149,7 +149,7 @@ def _per_cell(given, positions: np.ndarray, scalar=lambda text: text) -> np.ndar
     """The rejected cells' reasons or messages from text (`scalar` of it for every cell), a
     per-cell array of all cells, or a function of the rejected cells' positions."""
     out = np.empty(len(positions), dtype=object)
-    if callable(given) and not isinstance(given, str):
+    if callable(given):
         out[:] = given(positions)
     elif np.ndim(given):
         out[:] = np.asarray(given, dtype=object)[positions]

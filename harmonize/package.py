@@ -199,8 +199,8 @@ def prepare_table(table: pa.Table, resource: data_model.Resource) -> pa.Table:
     return pa.Table.from_arrays(arrays, names=resource.column_names)
 
 
-def _is_text_dictionary(array: pa.Array) -> bool:
-    return pa.types.is_dictionary(array.type) and pa.types.is_string(array.type.value_type)
+def _is_text_dictionary(typed: pa.Array | pa.ChunkedArray | pa.Field) -> bool:
+    return pa.types.is_dictionary(typed.type) and pa.types.is_string(typed.type.value_type)
 
 
 def _empty_to_missing(array: pa.Array) -> pa.Array:

@@ -149,26 +149,23 @@ class Coded:
         """The cells as a Python-object array (None for missing)."""
         return self.texts[self.codes]
 
-    def arrow(self) -> pa.Array:
-        if self._arrow is not None:
-            return pc.take(self._arrow, pa.array(self.codes))
-        codes, texts = self.codes, self.texts
-        if len(texts) > len(codes):  # a slice of a batch: convert only the texts it uses
-            used, codes = used_codes(codes, len(texts))
-            texts = texts[used]
-        return pc.take(_texts_to_arrow(texts), pa.array(codes.reshape(-1)))
-
     def dictionary(self) -> pa.DictionaryArray:
         """The column as an Arrow dictionary array: its codes into its texts, no text copied
         per cell. Texts a shorter column (a slice of a batch) does not use are left out."""
         codes = self.codes.reshape(-1)
         if self.text_count > len(codes):
             used, codes = used_codes(codes, self.text_count)
-            texts = self._arrow.take(pa.array(used)) if self._arrow is not None else None
-            texts = texts if texts is not None else _texts_to_arrow(self.texts[used])
+            if self._arrow is not None:
+                texts = self._arrow.take(pa.array(used))
+            else:
+                texts = _texts_to_arrow(self.texts[used])
         else:
             texts = self._arrow if self._arrow is not None else _texts_to_arrow(self.texts)
         return pa.DictionaryArray.from_arrays(pa.array(codes, pa.int32()), texts)
+
+    def arrow(self) -> pa.Array:
+        """The column as plain Arrow text (one text per cell)."""
+        return self.dictionary().cast(pa.string())
 
     def categorical(self) -> pd.Categorical:
         """The column as a pandas categorical (repeated texts merged, None missing)."""
@@ -317,7 +314,7 @@ def rows_table(rows: np.ndarray, columns: dict[str, Column]) -> pa.Table:
     indices = pa.array(rows)
     out = {}
     for name, column in columns.items():
-        if isinstance(column, Coded):  # decoded to text by `package.prepare_table`
+        if isinstance(column, Coded):  # the Parquet writer's thread decodes it
             out[name] = column.take(rows).dictionary()
         elif isinstance(column, pd.Series):
             out[name] = column_to_arrow(column).take(indices)
