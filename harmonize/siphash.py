@@ -1,8 +1,9 @@
 """SipHash-2-4 of short messages, vectorised with numpy (one message per array element).
 
 SipHash is the keyed hash pandas uses for text (`pandas.util.hash_array`); record ids hash row
-numbers as decimal text. Python would make a string object per row to hash it; here the
-decimal digits are laid into 64-bit words and the rounds run on whole arrays.
+numbers as decimal text. Python would make a string object per row to hash it; here Arrow
+writes the texts into one buffer, each text's bytes are laid into two 64-bit words, and the
+rounds run in place on whole arrays.
 Reference: J.-P. Aumasson and D. J. Bernstein, "SipHash: a fast short-input PRF" (2012).
 """
 
@@ -24,28 +25,31 @@ def key_words(key: bytes) -> tuple[int, int]:
     return int.from_bytes(key[:8], "little"), int.from_bytes(key[8:], "little")
 
 
-def _rotate(x: np.ndarray, bits: int) -> np.ndarray:
-    return (x << _U64(bits)) | (x >> _U64(64 - bits))
-
-
 def _rounds(v: list[np.ndarray], count: int) -> None:
+    """SipRounds in place (rotations through one scratch array, no temporaries)."""
     v0, v1, v2, v3 = v
+    scratch = np.empty_like(v0)
+
+    def rotate(x: np.ndarray, bits: int) -> None:
+        np.left_shift(x, _U64(bits), out=scratch)
+        np.right_shift(x, _U64(64 - bits), out=x)
+        x |= scratch
+
     for _ in range(count):
         v0 += v1
-        v1 = _rotate(v1, 13)
+        rotate(v1, 13)
         v1 ^= v0
-        v0 = _rotate(v0, 32)
+        rotate(v0, 32)
         v2 += v3
-        v3 = _rotate(v3, 16)
+        rotate(v3, 16)
         v3 ^= v2
         v0 += v3
-        v3 = _rotate(v3, 21)
+        rotate(v3, 21)
         v3 ^= v0
         v2 += v1
-        v1 = _rotate(v1, 17)
+        rotate(v1, 17)
         v1 ^= v2
-        v2 = _rotate(v2, 32)
-    v[:] = [v0, v1, v2, v3]
+        rotate(v2, 32)
 
 
 def siphash24(key: tuple[int, int], blocks: list[np.ndarray], last: np.ndarray) -> np.ndarray:
@@ -92,20 +96,24 @@ def decimal_siphash(values: np.ndarray, key: tuple[int, int]) -> np.ndarray:
 _CHUNK = 1 << 16
 
 
+_SIXTEEN = np.arange(16, dtype=np.int32)
+
+
 def _decimal_chunk(values: np.ndarray, key: tuple[int, int]) -> np.ndarray:
-    text = pc.cast(pa.array(values), pa.string())
+    text = pc.cast(pa.array(values), pa.string())  # the decimal texts, one buffer
     offsets = np.frombuffer(text.buffers()[1], dtype=np.int32)[: len(values) + 1]
-    data = np.frombuffer(text.buffers()[2], dtype=np.uint8)[offsets[0] : offsets[-1]]
+    padded = np.zeros(int(offsets[-1]) + 16, dtype=np.uint8)  # room to read 16 past any start
+    padded[: offsets[-1]] = np.frombuffer(text.buffers()[2], dtype=np.uint8)[: offsets[-1]]
     length = np.diff(offsets)
-    # each text's bytes laid into a zeroed 16-byte row: two little-endian words
-    rows = np.repeat(np.arange(len(values)), length)
-    within = np.arange(len(data)) - np.repeat(offsets[:-1] - offsets[0], length)
-    laid = np.zeros((len(values), 16), dtype=np.uint8)
-    laid[rows, within] = data
+    # each text's 16 bytes from its start, bytes past its end zeroed: two little-endian words
+    laid = padded[offsets[:-1, None] + _SIXTEEN]
+    laid *= _SIXTEEN < length[:, None]
     words = laid.view("<u8")
     tail = length.astype(_U64) << _U64(56)
-    out = np.empty(len(values), dtype=_U64)
     short = length < 8
+    if short.all():  # the usual case: row numbers below 10 million
+        return siphash24(key, [], words[:, 0] | tail)
+    out = np.empty(len(values), dtype=_U64)
     out[short] = siphash24(key, [], words[short, 0] | tail[short])
     long = ~short
     out[long] = siphash24(key, [words[long, 0]], words[long, 1] | tail[long])
