@@ -359,10 +359,10 @@ def _combine_hashes(arrays: list[np.ndarray]) -> np.ndarray:
 def _hex_arrow(hashes: np.ndarray) -> pa.Array:
     """uint64 hashes -> 16-character lower-case hex texts, built in Arrow (no loop per value)."""
     raw = np.ascontiguousarray(hashes.astype(">u8")).tobytes().hex().encode("ascii")
-    fixed = pa.FixedSizeBinaryArray.from_buffers(
-        pa.binary(16), len(hashes), [None, pa.py_buffer(raw)]
+    offsets = np.arange(0, 16 * len(hashes) + 1, 16, dtype=np.int32)  # 16 characters each
+    return pa.StringArray.from_buffers(
+        len(hashes), pa.py_buffer(offsets.tobytes()), pa.py_buffer(raw)
     )
-    return fixed.cast(pa.binary()).cast(pa.string())
 
 
 # pandas' default key for `hash_pandas_object` (pandas.core.util.hashing)
