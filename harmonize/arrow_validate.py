@@ -298,7 +298,7 @@ def _hex_key_numbers(column: pa.Array | pa.ChunkedArray) -> np.ndarray | None:
     offsets = np.frombuffer(column.buffers()[1], dtype=np.int32)[
         column.offset : column.offset + len(column) + 1
     ]
-    if offsets[-1] - offsets[0] != 16 * len(column) or (np.diff(offsets) != 16).any():
+    if (np.diff(offsets) != 16).any():
         return None
     data = memoryview(column.buffers()[2])[offsets[0] : offsets[-1]]
     try:
@@ -316,8 +316,7 @@ def _repeated_hash_rows(hashes: np.ndarray) -> np.ndarray:
     ordered = np.sort(hashes)
     if not (ordered[1:] == ordered[:-1]).any():  # the usual case: no key repeats
         return np.array([], dtype=np.int64)
-    order = np.argsort(hashes, kind="stable")
-    ordered = hashes[order]
+    order = np.argsort(hashes, kind="stable")  # `ordered` is hashes[order]
     same = ordered[1:] == ordered[:-1]
     repeated = np.zeros(len(ordered), dtype=bool)
     repeated[1:] |= same

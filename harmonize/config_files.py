@@ -63,6 +63,16 @@ def as_number(value: Any, file: Path, where: str) -> float:
     return float(value)
 
 
+def as_count(value: Any, file: Path, where: str) -> int:
+    """A whole number of at least 1 (a size or a limit)."""
+    number = as_number(value, file, where)
+    if number < 1 or number != int(number):
+        raise ConfigError(
+            f"'{where}' must be a whole number of at least 1, got {value!r}", file=str(file)
+        )
+    return int(number)
+
+
 def resolve_inside(root: Path, base: Path, text: str, file: Path, where: str) -> Path:
     """Resolve `text` relative to `base`; refuse URLs and anything whose real path leaves `root`."""
     if "://" in text or text.startswith(("file:", "~", "$")):

@@ -394,11 +394,13 @@ def _size_and_hash(name: str, path: Path, resource: dict[str, Any]) -> list[Vali
     return problems
 
 
-def _per_text(
+def _per_cell(
     column: pa.ChunkedArray, mask_of: Callable[[pa.ChunkedArray], pa.ChunkedArray], code_missing
 ) -> pa.ChunkedArray:
-    """`mask_of` a dictionary-encoded column, worked out once per distinct text and taken by
-    each cell's code; a cell without a code gets `code_missing`."""
+    """`mask_of` the column's cells. A dictionary-encoded column is worked out once per distinct
+    text and taken by each cell's code; a cell without a code gets `code_missing`."""
+    if not pa.types.is_dictionary(column.type):
+        return mask_of(column)
     chunks = []
     for chunk in column.chunks:
         per_text = mask_of(pa.chunked_array([chunk.dictionary])).combine_chunks()
@@ -411,8 +413,10 @@ def _per_text(
 
 
 def _missing_mask(column: pa.ChunkedArray, missing_values: list[Any]) -> pa.ChunkedArray:
-    if pa.types.is_dictionary(column.type):
-        return _per_text(column, lambda texts: _missing_mask(texts, missing_values), True)
+    return _per_cell(column, lambda texts: _missing_cells(texts, missing_values), True)
+
+
+def _missing_cells(column: pa.ChunkedArray, missing_values: list[Any]) -> pa.ChunkedArray:
     mask = pc.is_null(column)
     if pa.types.is_floating(column.type):
         # A NaN is what a missing float becomes on its way through pandas; our CSV writes it
@@ -466,10 +470,7 @@ def _check_column(
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
             message = f"enum {enum} cannot be compared with a {stored} column"
             return problems + [_problem(resource, "schema-error", message, field=name)]
-        if pa.types.is_dictionary(column.type):
-            known = _per_text(column, lambda texts: pc.is_in(texts, value_set=allowed), False)
-        else:
-            known = pc.is_in(column, value_set=allowed)
+        known = _per_cell(column, lambda texts: pc.is_in(texts, value_set=allowed), False)
         outside = pc.and_(pc.invert(missing), pc.invert(known))
         indices = _first_rows(outside, limit)
         problems += [

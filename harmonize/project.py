@@ -19,6 +19,7 @@ from harmonize.config_files import (  # noqa: F401 - YAML_MAX_BYTES, parse_yaml 
     YAML_MAX_BYTES,
     as_arrhenius_temperature,
     as_choice,
+    as_count,
     as_mapping,
     as_number,
     as_string,
@@ -70,15 +71,6 @@ class Limits:
     max_cell_chars: int = 256
     max_columns: int = 5000
     batch_rows: int = 262_144
-
-
-def _positive_whole(value: Any, file: Path, where: str) -> int:
-    number = as_number(value, file, where)
-    if number < 1 or number != int(number):
-        raise ConfigError(
-            f"'{where}' must be a whole number of at least 1, got {value!r}", file=str(file)
-        )
-    return int(number)
 
 
 @dataclass(frozen=True)
@@ -245,9 +237,7 @@ def load_project(location: Path | str = ".") -> Project:
 
     limits_data = as_mapping(data.get("limits"), project_file, "limits")
     check_keys(limits_data, LIMIT_KEYS, project_file, "limits")
-    limits = Limits(
-        **{k: _positive_whole(v, project_file, f"limits.{k}") for k, v in limits_data.items()}
-    )
+    limits = Limits(**{k: as_count(v, project_file, f"limits.{k}") for k, v in limits_data.items()})
 
     return Project(
         root=root,

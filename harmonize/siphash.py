@@ -88,14 +88,12 @@ def decimal_siphash(values: np.ndarray, key: tuple[int, int]) -> np.ndarray:
         raise ValueError("decimal_siphash takes integers of at most 15 characters")
     values = np.asarray(values, dtype=np.int64)
     out = np.empty(len(values), dtype=_U64)
-    for start in range(0, len(values), _CHUNK):  # chunks small enough to stay in cache
+    for start in range(0, len(values), _CHUNK):
         out[start : start + _CHUNK] = _decimal_chunk(values[start : start + _CHUNK], key)
     return out
 
 
-_CHUNK = 1 << 16
-
-
+_CHUNK = 1 << 16  # numbers hashed at once: arrays small enough to stay in cache
 _SIXTEEN = np.arange(16, dtype=np.int32)
 
 

@@ -304,8 +304,8 @@ def record_ids_of_table(table: pa.Table, source: str) -> pa.Array:
     Each id is pandas' `hash_pandas_object` of the row's texts (source first, then
     RECORD_ID_COLUMNS, each as `astype(str)` makes it), which hashes a text column by its
     distinct texts and combines the columns like a tuple hash. Here each distinct value is
-    turned into text and hashed once, and its hash taken by code, so no Python string is made
-    per cell (except the row numbers).
+    turned into text and hashed once, and its hash taken by code; row numbers are hashed as
+    decimal text by `siphash`. No Python string is made per cell.
     """
     count = len(table)
     hashed = [np.full(count, _text_hashes(np.array([source], dtype=object))[0], dtype=np.uint64)]

@@ -46,9 +46,8 @@ _KEPT_RANK_MARKERS = {"var": "var.", "f": "f.", "forma": "f.", "subvar": "subvar
 # Lower-case name particles that begin an author citation ("de Selys Longchamps").
 _AUTHOR_PARTICLES = {"de", "von", "van", "der", "du", "da", "di", "del", "la", "le", "dos"}
 
-_GENUS = re.compile(
-    rf"{HYBRID_SIGN}?(?:[A-Za-z]+|[A-Za-z]\.)"
-)  # "S. minutus": abbreviated genus, resolved by the synonym table
+# "S. minutus": an abbreviated genus, resolved by the synonym table
+_GENUS = re.compile(rf"{HYBRID_SIGN}?(?:[A-Za-z]+|[A-Za-z]\.)")
 # Latin letters only, hyphen allowed inside (ICZN Art. 32.5.2.3, e.g. "c-album").
 _EPITHET = re.compile(r"[A-Za-z]+(?:-[A-Za-z]+)*")
 _SUBGENUS = re.compile(r"\([A-Za-z]+\)")
