@@ -71,6 +71,12 @@ def _rank_marker(token: str) -> str | None:
     return _KEPT_RANK_MARKERS.get(token.lower().rstrip("."))
 
 
+def _genus_like(tokens: list[str], i: int) -> bool:
+    """Whether tokens[i] reads as a genus: title case without a period, an epithet after it."""
+    following = tokens[i + 1] if i + 1 < len(tokens) else ""
+    return tokens[i].istitle() and not tokens[i].endswith(".") and not following.istitle()
+
+
 def _capitalised(word: str) -> str:
     if word.startswith(HYBRID_SIGN):
         return HYBRID_SIGN + _capitalised(word[1:])
@@ -102,8 +108,13 @@ def parse_taxon_name(verbatim: object) -> TaxonName:
     tokens = text.split(" ") if text else []
     qualifiers: list[str] = []
     i = 0
-    # A qualifier may precede the whole name: "cf. Sorex minutus".
-    while i < len(tokens) and _open_qualifier(tokens[i]) in ("cf.", "aff."):
+    # A qualifier may precede the whole name: "cf. Sorex minutus". Written like a genus
+    # before an epithet (title case, no period: "Aff aaa") it is the genus.
+    while (
+        i < len(tokens)
+        and _open_qualifier(tokens[i]) in ("cf.", "aff.")
+        and not _genus_like(tokens, i)
+    ):
         qualifiers.append(_open_qualifier(tokens[i]))
         i += 1
     if i >= len(tokens) or not _GENUS.fullmatch(tokens[i]):

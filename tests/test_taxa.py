@@ -49,6 +49,11 @@ NAME_SPLITS = [
     ("Sorex cf. minutus", "Sorex minutus", "cf.", None),
     ("Sorex cf minutus", "Sorex minutus", "cf.", None),
     ("cf. Sorex minutus", "Sorex minutus", "cf.", None),
+    ("Cf. Sorex minutus", "Sorex minutus", "cf.", None),
+    ("aff Sorex minutus", "Sorex minutus", "aff.", None),
+    ("Cf Sorex minutus", "Sorex minutus", "cf.", None),
+    # a genus spelt like a qualifier (found by the generated-name test below; invented name)
+    ("Aff aaa Aaa, 1758", "Aff aaa", None, "Aaa, 1758"),
     ("Sorex aff. araneus", "Sorex araneus", "aff.", None),
     ("Sorex sp.", "Sorex", "sp.", None),
     ("Sorex spp.", "Sorex", "spp.", None),
