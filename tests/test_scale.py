@@ -315,7 +315,7 @@ def test_values_checked_as_dictionary_text_give_the_problems_plain_text_gives(
 def test_parquet_bytes_do_not_depend_on_how_values_arrive(tmp_path):
     # A row group is written from its pieces joined, so pieces of any size give the same file.
     # Written piece by piece, columns of many distinct texts (ids, values as written: more
-    # than Parquet's default 1 MiB dictionary page holds) came out in different pages.
+    # than a dictionary page holds) came out in different pages.
     rows = 140_000
     ids = [f"{i * 2654435761 % 2**64:016x}" for i in range(rows)]
     table = prepare_table(
@@ -339,3 +339,38 @@ def test_parquet_bytes_do_not_depend_on_how_values_arrive(tmp_path):
         written[piece] = (tmp_path / "individual_values.parquet").read_bytes()
     assert written[rows] == written[7_001]
     assert pq.read_table(tmp_path / "individual_values.parquet")["record_id"].to_pylist() == ids
+
+
+def test_parquet_dictionaries_stay_small(tmp_path):
+    # Columns of few distinct texts are dictionary-encoded; a column of distinct ids gives up
+    # its dictionary once the page reaches the writer's limit instead of Arrow's 1 MiB.
+    rows = 100_000
+    table = prepare_table(
+        pa.table(
+            {
+                "record_id": [f"{i * 2654435761 % 2**64:016x}" for i in range(rows)],
+                "source_id": ["s"] * rows,
+                "source_row": list(range(1, rows + 1)),
+                "trait_id": pc.dictionary_encode(
+                    pa.array(["body_mass", "tail_length"] * (rows // 2))
+                ),
+            }
+        ),
+        tables.INDIVIDUAL_VALUES,
+    )
+    writer = ResourceWriter(tables.INDIVIDUAL_VALUES, tmp_path, "parquet")
+    writer.write(table)
+    writer.close()
+    group = pq.ParquetFile(tmp_path / "individual_values.parquet").metadata.row_group(0)
+    chunks = {group.column(i).path_in_schema: group.column(i) for i in range(group.num_columns)}
+
+    def dictionary_page_bytes(name: str) -> int:
+        chunk = chunks[name]
+        assert chunk.has_dictionary_page
+        # the dictionary page's size in the file (compressed, with its header)
+        return chunk.data_page_offset - chunk.dictionary_page_offset
+
+    assert "PLAIN" in chunks["record_id"].encodings  # fell back to plain pages
+    assert dictionary_page_bytes("record_id") < 100_000  # < Arrow's 1 MiB default
+    assert "RLE_DICTIONARY" in chunks["trait_id"].encodings
+    assert dictionary_page_bytes("trait_id") < 200
