@@ -1,8 +1,8 @@
 """SipHash-2-4 of short messages, vectorised with numpy (one message per array element).
 
 SipHash is the keyed hash pandas uses for text (`pandas.util.hash_array`); record ids hash row
-numbers as decimal text. Python would make a string object per row to hash it; here Arrow
-writes the texts into one buffer, each text's bytes are laid into two 64-bit words, and the
+numbers as decimal text. Python would make a string object per row to hash it; here each
+number's digits are placed straight into the two 64-bit words its text would fill, and the
 rounds run in place on whole arrays.
 Reference: J.-P. Aumasson and D. J. Bernstein, "SipHash: a fast short-input PRF" (2012).
 """
@@ -10,8 +10,6 @@ Reference: J.-P. Aumasson and D. J. Bernstein, "SipHash: a fast short-input PRF"
 from __future__ import annotations
 
 import numpy as np
-import pyarrow as pa
-import pyarrow.compute as pc
 
 _U64 = np.uint64
 # the decimal text of a number up to this fits in two 8-byte words (15 digits)
@@ -94,25 +92,41 @@ def decimal_siphash(values: np.ndarray, key: tuple[int, int]) -> np.ndarray:
 
 
 _CHUNK = 1 << 16  # numbers hashed at once: arrays small enough to stay in cache
-_SIXTEEN = np.arange(16, dtype=np.int32)
+_POWERS = 10 ** np.arange(1, 16, dtype=np.int64)  # 10 .. 10**15
 
 
 def _decimal_chunk(values: np.ndarray, key: tuple[int, int]) -> np.ndarray:
-    text = pc.cast(pa.array(values), pa.string())  # the decimal texts, one buffer
-    offsets = np.frombuffer(text.buffers()[1], dtype=np.int32)[: len(values) + 1]
-    padded = np.zeros(int(offsets[-1]) + 16, dtype=np.uint8)  # room to read 16 past any start
-    padded[: offsets[-1]] = np.frombuffer(text.buffers()[2], dtype=np.uint8)[: offsets[-1]]
-    length = np.diff(offsets)
-    # each text's 16 bytes from its start, bytes past its end zeroed: two little-endian words
-    laid = padded[offsets[:-1, None] + _SIXTEEN]
-    laid *= _SIXTEEN < length[:, None]
-    words = laid.view("<u8")
+    words, length = _decimal_words(values)
     tail = length.astype(_U64) << _U64(56)
     short = length < 8
     if short.all():  # the usual case: row numbers below 10 million
-        return siphash24(key, [], words[:, 0] | tail)
+        return siphash24(key, [], words[0] | tail)
     out = np.empty(len(values), dtype=_U64)
-    out[short] = siphash24(key, [], words[short, 0] | tail[short])
+    out[short] = siphash24(key, [], words[0][short] | tail[short])
     long = ~short
-    out[long] = siphash24(key, [words[long, 0]], words[long, 1] | tail[long])
+    out[long] = siphash24(key, [words[0][long]], words[1][long] | tail[long])
     return out
+
+
+def _decimal_words(values: np.ndarray) -> tuple[list[np.ndarray], np.ndarray]:
+    """Each number's decimal text as two little-endian 64-bit words (bytes past the text
+    zero), and the text's length. Digits are taken by division, right to left, and placed
+    at their byte; no text is made."""
+    negative = values < 0
+    rest = np.abs(values)
+    digits = np.searchsorted(_POWERS, rest, side="right") + 1
+    length = digits + negative
+    words = [np.where(negative, _U64(ord("-")), _U64(0)), np.zeros(len(values), dtype=_U64)]
+    second = len(values) and int(length.max()) > 8  # any text reaching the second word
+    place = length - 1  # the byte of the current digit, from the text's start
+    for k in range(int(digits.max()) if len(values) else 0):
+        rest, digit = np.divmod(rest, 10)
+        char = (digit + ord("0")).astype(_U64)
+        char[digits <= k] = 0  # past the number's first digit: no byte
+        first = place < 8
+        words[0] |= np.where(first, char, _U64(0)) << (np.clip(place, 0, 7) * 8).astype(_U64)
+        if second:
+            shift = (np.clip(place - 8, 0, 7) * 8).astype(_U64)
+            words[1] |= np.where(first, _U64(0), char) << shift
+        place -= 1
+    return words, length
