@@ -17,6 +17,10 @@ text frames like the CSV and Parquet readers do, so a mapping treats them like a
   CSV/TSV and Parquet resources are read; the dialect's delimiter, quote character and header,
   the resource's encoding and the schema's `missingValues` (they become empty cells) are honoured.
 
+Both stream: the MeasurementOrFact extension and a package's files are read in batches of
+`limits.batch_rows` rows, so memory follows the batch, not the file. An archive's core is held
+whole (one row per occurrence, looked up by id for each extension row).
+
 Safety, before any data is read: archive members with absolute paths, drive letters or `..`
 are refused (zip-slip), meta.xml locations likewise, every data file is held to the project's
 `limits.max_file_bytes`, and package paths go through `harmonize.package_validate.check_paths`.
@@ -72,7 +76,7 @@ def _check_size(size: int, limits: Limits, file: str) -> None:
         )
 
 
-def _read_text(
+def _text_tables(
     stream: IO[bytes] | Path,
     *,
     file: str,
@@ -81,11 +85,16 @@ def _read_text(
     skip_rows: int,
     encoding: str,
     columns: dict[str, str],
-) -> pd.DataFrame:
-    """Read the columns {position name 'f<i>': output name} of a delimited file as text."""
+    batch_rows: int,
+) -> Iterator[pa.Table]:
+    """Read the columns {position name 'f<i>': output name} of a delimited file as text, in
+    tables of at least `batch_rows` rows (the last may be shorter), streaming: memory follows
+    the batch, not the file. A file without rows gives one empty table."""
     names = list(columns)
+    pending: list[pa.RecordBatch] = []
+    pending_rows = 0
     try:
-        table = pacsv.read_csv(
+        reader = pacsv.open_csv(
             stream,
             read_options=pacsv.ReadOptions(
                 autogenerate_column_names=True,
@@ -103,6 +112,17 @@ def _read_text(
                 quoted_strings_can_be_null=False,
             ),
         )
+        schema = reader.schema
+        yielded = False
+        for batch in reader:
+            pending.append(batch)
+            pending_rows += batch.num_rows
+            if pending_rows >= batch_rows:
+                yield _renamed(pa.Table.from_batches(pending), columns)
+                yielded = True
+                pending, pending_rows = [], 0
+        if pending or not yielded:
+            yield _renamed(pa.Table.from_batches(pending, schema=schema), columns)
     except KeyError as error:  # ArrowKeyError: a declared index beyond the file's columns
         raise SourceReadError(
             f"a declared column is not in the file ({error})",
@@ -116,20 +136,17 @@ def _read_text(
             hint="rows must have as many fields as the first one; check the declared delimiter "
             "and encoding",
         ) from None
-    frame = table.to_pandas()
-    return frame.rename(columns=columns)[list(columns.values())]
+
+
+def _renamed(table: pa.Table, columns: dict[str, str]) -> pa.Table:
+    return table.rename_columns([columns[name] for name in table.column_names]).select(
+        list(columns.values())
+    )
 
 
 def _arrow_encoding(encoding: str) -> str:
     """pyarrow names UTF-8 'utf8'; other encodings are passed on to Python's codecs."""
     return "utf8" if encoding.lower().replace("-", "").replace("_", "") == "utf8" else encoding
-
-
-def _batches(frame: pd.DataFrame, limits: Limits) -> Iterator[pd.DataFrame]:
-    for start in range(0, max(len(frame), 1), limits.batch_rows):
-        piece = frame.iloc[start : start + limits.batch_rows].reset_index(drop=True)
-        if len(piece) or start == 0:
-            yield piece
 
 
 # ---------------------------------------------------------------- Darwin Core Archive
@@ -305,20 +322,23 @@ def dwca_header(mapping: Mapping) -> list[str]:
     return ["coreid", *core_names, *_column_names(facts, "coreid", set(core_names), "mof.")[1:]]
 
 
-def _read_spec(files: _ArchiveFiles, spec: _FileSpec, names: list[str]) -> pd.DataFrame:
-    """The file of one meta.xml part: key column then one column per declared field."""
+def _spec_tables(
+    files: _ArchiveFiles, spec: _FileSpec, names: list[str], batch_rows: int
+) -> Iterator[pa.Table]:
+    """The file of one meta.xml part, in batches: key column then one column per declared
+    field."""
     by_index = {spec.key_index: names[0]}  # file column -> first output name reading it
-    copies: list[tuple[str, str]] = []  # a field sharing a column (occurrenceID at the id's)
+    copies: dict[str, str] = {}  # a field sharing a column (occurrenceID at the id's)
     constants: dict[str, str] = {}  # a field with only a default applies to every row
     for name, (_term, index, default) in zip(names[1:], spec.fields, strict=True):
         if index is None:
             constants[name] = default
         elif index in by_index:
-            copies.append((name, by_index[index]))
+            copies[name] = by_index[index]
         else:
             by_index[index] = name
     with files.open(spec.location) as handle:
-        frame = _read_text(
+        for table in _text_tables(
             handle,
             file=files.where(spec.location),
             delimiter=spec.delimiter,
@@ -326,31 +346,46 @@ def _read_spec(files: _ArchiveFiles, spec: _FileSpec, names: list[str]) -> pd.Da
             skip_rows=spec.skip_rows,
             encoding=_arrow_encoding(spec.encoding),
             columns={f"f{index}": name for index, name in by_index.items()},
-        )
-    for name, source in copies:
-        frame[name] = frame[source]
-    for name, value in constants.items():
-        frame[name] = value
-    return frame[names]
+            batch_rows=batch_rows,
+        ):
+            count = len(table)
+            yield pa.table(
+                {
+                    name: table[copies.get(name, name)]
+                    if name not in constants
+                    else pa.repeat(pa.scalar(constants[name], pa.string()), count)
+                    for name in names
+                }
+            )
 
 
 def read_dwca(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
+    """Extension rows in batches, each joined to its core row. The core is held whole (one
+    row per occurrence, to look rows up by id); the extension, usually the long file, streams."""
     with _ArchiveFiles(mapping, limits) as files:
         core_spec, facts_spec = _archive_layout(files)
         core_names = _column_names(core_spec, "coreid", set(), "")
         fact_names = _column_names(facts_spec, "coreid", set(core_names[1:]), "mof.")
-        core = _read_spec(files, core_spec, core_names)
-        facts = _read_spec(files, facts_spec, fact_names)
-        core_file = files.where(core_spec.location)
-    repeated = core["coreid"][core["coreid"].duplicated()]
-    if len(repeated):
-        raise SourceReadError(
-            f"core id {repeated.iloc[0]!r} is used by more than one core row",
-            file=core_file,
-            hint="core ids must be unique, or the archive's values would be attached twice",
-        )
-    joined = facts.merge(core, on="coreid", how="left", sort=False).fillna("")
-    yield from _batches(joined[header], limits)
+        core = pa.concat_tables(
+            _spec_tables(files, core_spec, core_names, limits.batch_rows)
+        ).combine_chunks()
+        ids = core["coreid"].combine_chunks()
+        if len(pc.unique(ids)) < len(ids):
+            repeated = ids.to_pandas()
+            raise SourceReadError(
+                f"core id {repeated[repeated.duplicated()].iloc[0]!r} is used by more than one "
+                "core row",
+                file=files.where(core_spec.location),
+                hint="core ids must be unique, or the archive's values would be attached twice",
+            )
+        attached = core.select(core_names[1:])
+        for facts in _spec_tables(files, facts_spec, fact_names, limits.batch_rows):
+            rows = pc.index_in(facts["coreid"], value_set=ids)  # null: not in the core
+            found = attached.take(rows)
+            columns = {name: facts[name] for name in fact_names}
+            # an extension row whose id the core lacks gets empty core columns
+            columns |= {name: pc.fill_null(found[name], "") for name in attached.column_names}
+            yield pa.table(columns).select(header).to_pandas()
 
 
 # ---------------------------------------------------------------- Frictionless Data Package
@@ -494,24 +529,39 @@ def read_datapackage(mapping: Mapping, header: list[str], limits: Limits) -> Ite
     for number, path in enumerate(resource.paths):
         _check_size(path.stat().st_size if path.is_file() else 0, limits, str(path))
         if resource.format == "parquet":
-            try:
-                table = pq.read_table(path)
-            except (pa.ArrowInvalid, OSError) as error:
-                raise SourceReadError(f"cannot read Parquet ({error})", file=str(path)) from None
-            text = {n: pc.cast(table.column(n), pa.string()) for n in table.column_names}
-            frame = pa.table(text).to_pandas().fillna("")[header]
+            frames = _parquet_batches(path, header, limits.batch_rows)
         else:
             # Data Package multipart resources: only the first file carries the header row.
             skip = 1 if resource.header and number == 0 else 0
-            frame = _read_text(
-                path,
-                file=str(path),
-                delimiter=resource.delimiter,
-                quote=resource.quote,
-                skip_rows=skip,
-                encoding=_arrow_encoding(resource.encoding),
-                columns={f"f{i}": name for i, name in enumerate(header)},
+            frames = (
+                table.to_pandas()
+                for table in _text_tables(
+                    path,
+                    file=str(path),
+                    delimiter=resource.delimiter,
+                    quote=resource.quote,
+                    skip_rows=skip,
+                    encoding=_arrow_encoding(resource.encoding),
+                    columns={f"f{i}": name for i, name in enumerate(header)},
+                    batch_rows=limits.batch_rows,
+                )
             )
-        if resource.missing:
-            frame = frame.mask(frame.isin(list(resource.missing)), "")
-        yield from _batches(frame, limits)
+        for frame in frames:
+            if resource.missing:
+                frame = frame.mask(frame.isin(list(resource.missing)), "")
+            yield frame
+
+
+def _parquet_batches(path: Path, header: list[str], batch_rows: int) -> Iterator[pd.DataFrame]:
+    """A Parquet resource's columns as text, in batches of `batch_rows` rows (one empty frame
+    for a file without rows)."""
+    try:
+        yielded = False
+        for batch in pq.ParquetFile(path).iter_batches(batch_size=batch_rows, columns=header):
+            text = {n: pc.cast(batch.column(n), pa.string()) for n in header}
+            yield pa.table(text).to_pandas().fillna("")
+            yielded = True
+        if not yielded:
+            yield pd.DataFrame({name: pd.Series([], dtype=object) for name in header})
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError) as error:
+        raise SourceReadError(f"cannot read Parquet ({error})", file=str(path)) from None

@@ -19,6 +19,7 @@ import pytest
 
 from harmonize.build import build_project
 from harmonize.errors import ConfigError, SourceReadError, UnsafePathError
+from harmonize.foreign import read_datapackage, read_dwca
 from harmonize.project import Limits, load_project
 from harmonize.sources import iter_cells, read_header
 
@@ -124,6 +125,61 @@ def check_archive_build(root: Path) -> None:
 
 def test_darwin_core_archive_zip_is_read_like_any_long_table(tmp_path):
     check_archive_build(archive_project(tmp_path))
+
+
+def test_archive_extension_streams_in_batches_joined_to_its_core(tmp_path):
+    # 1,000 core rows and 250,000 extension rows (about 6.6 MB: more than one of the reader's
+    # 4 MiB blocks), every 7th pointing at an id the core lacks. Read in batches of 40,000,
+    # each extension row must carry exactly its own core row's columns (or empty ones).
+    species = ["Podarcis muralis", "Zootoca vivipara", "Lacerta agilis"]
+    core = "id\tname\twhere\tsex\twhen\n" + "".join(
+        f"occ-{i}\t{species[i % 3]}\tInvented site {i}\tmale\t2023-05-01\n" for i in range(1000)
+    )
+    ids = [f"occ-{i % 1000}" if i % 7 else f"lost-{i}" for i in range(250_000)]
+    facts = "coreid\ttype\tvalue\tunit\tremarks\n" + "".join(
+        f"{c}\tbody mass\t{i}\tg\t\n" for i, c in enumerate(ids)
+    )
+    write_zip(
+        tmp_path / "data" / "big.zip",
+        {"meta.xml": meta_xml(), "occurrence.txt": core, "mof.txt": facts},
+    )
+    root = project(tmp_path, DWCA_MAPPING.format(path="../data/big.zip", format=""))
+    mapping = load_project(root).mappings[0]
+    frames = list(read_dwca(mapping, read_header(mapping), Limits(batch_rows=40_000)))
+    assert len(frames) > 1
+    assert all(len(f) >= 40_000 for f in frames[:-1])
+    joined = pd.concat(frames, ignore_index=True)
+    assert list(joined["measurementValue"]) == [str(i) for i in range(250_000)]  # in file order
+    assert list(joined["coreid"]) == ids
+    expected = [species[int(c[4:]) % 3] if c.startswith("occ-") else "" for c in ids]
+    assert list(joined["scientificName"]) == expected
+    assert list(joined["locality"]) == [
+        f"Invented site {c[4:]}" if c.startswith("occ-") else "" for c in ids
+    ]
+    # the core's default (lifeStage) is part of the core row: absent with it
+    assert list(joined["lifeStage"]) == ["adult" if c.startswith("occ-") else "" for c in ids]
+
+
+def test_parquet_resource_of_a_data_package_is_read_in_batches(tmp_path):
+    table = pa.table(
+        {
+            "species": ["Podarcis muralis"] * 10,
+            "animal": [f"a{i}" for i in range(10)],
+            "mass": [i + 0.5 if i % 4 else None for i in range(10)],
+            "svl": list(range(40, 50)),
+        }
+    )
+    sink = pa.BufferOutputStream()
+    pq.write_table(table, sink, row_group_size=3)
+    resource = {"name": "animals", "path": "animals.parquet", "format": "parquet"}
+    write_package(tmp_path, resource, {"animals.parquet": sink.getvalue().to_pybytes()})
+    root = project(tmp_path, PACKAGE_MAPPING.format(read="read: {resource: animals}\n"))
+    mapping = load_project(root).mappings[0]
+    frames = list(read_datapackage(mapping, read_header(mapping), Limits(batch_rows=4)))
+    assert [len(f) for f in frames] == [4, 4, 2]
+    joined = pd.concat(frames, ignore_index=True)
+    assert list(joined["animal"]) == [f"a{i}" for i in range(10)]
+    assert list(joined["mass"]) == ["" if i % 4 == 0 else f"{i}.5" for i in range(10)]
 
 
 def test_unpacked_archive_is_read_through_its_meta_xml(tmp_path):
