@@ -11,6 +11,7 @@ swapping in `publish`, the per-source cache in `incremental`, the comparison in 
 
 from __future__ import annotations
 
+import hashlib
 import json
 import shutil
 from collections import Counter
@@ -20,7 +21,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from harmonize import __version__, publish, sources, tables
+from harmonize import __version__, foreign, publish, sources, tables
 from harmonize.arrow_validate import ResourceCheck, accounting_problems, check_package_arrow
 from harmonize.changes import ChangeReport, compare_packages, report_text
 from harmonize.errors import BuildError, SourceNotFoundError
@@ -111,7 +112,16 @@ def _source_checksum(mapping: Mapping) -> str:
             file=str(mapping.path),
             hint=f"path declared in {mapping.mapping_file.name}",
         )
-    return sources.file_sha256(mapping.path)
+    if mapping.format not in ("dwca", "datapackage"):
+        return sources.file_sha256(mapping.path)
+    files = foreign.source_files(mapping)
+    if len(files) == 1:  # a zipped archive
+        return sources.file_sha256(files[0])
+    # a descriptor and the files it names: one digest over each file's name and digest
+    digest = hashlib.sha256()
+    for path in files:
+        digest.update(f"{path.name}\0{sources.file_sha256(path)}\n".encode())
+    return digest.hexdigest()
 
 
 # The frames one source contributes besides its individual values; the cache stores them.

@@ -217,7 +217,7 @@ class _ArchiveFiles:
     def where(self, name: str) -> str:
         return f"{self.path}:{name}" if self.zip else str(self.folder / name)
 
-    def open(self, name: str) -> IO[bytes]:
+    def _refuse_unsafe(self, name: str) -> None:
         reason = _unsafe_member(name)
         if reason:
             raise UnsafePathError(
@@ -225,13 +225,21 @@ class _ArchiveFiles:
                 file=str(self.path),
                 hint="locations must name files inside the archive",
             )
-        if self.zip is not None:
-            try:
-                return self.zip.open(self.base + name)
-            except KeyError:
-                raise SourceReadError(
-                    f"meta.xml names {name!r}, which is not in the archive", file=str(self.path)
-                ) from None
+
+    def open(self, name: str) -> IO[bytes]:
+        if self.zip is None:
+            return open(self.member_path(name), "rb")
+        self._refuse_unsafe(name)
+        try:
+            return self.zip.open(self.base + name)
+        except KeyError:
+            raise SourceReadError(
+                f"meta.xml names {name!r}, which is not in the archive", file=str(self.path)
+            ) from None
+
+    def member_path(self, name: str) -> Path:
+        """The file of a member of an unpacked archive (checked to stay inside its folder)."""
+        self._refuse_unsafe(name)
         target = Path(os.path.realpath(self.folder / name))
         if not target.is_relative_to(self.folder):
             raise UnsafePathError(
@@ -241,7 +249,15 @@ class _ArchiveFiles:
         if not target.is_file():
             raise SourceReadError(f"meta.xml names {name!r}, which is missing", file=str(target))
         _check_size(target.stat().st_size, self.limits, str(target))
-        return open(target, "rb")
+        return target
+
+    def files(self) -> list[Path]:
+        """The files an unpacked archive reads: meta.xml, the core and the extension."""
+        core, facts = _archive_layout(self)
+        return [
+            self.member_path("meta.xml"),
+            *(self.member_path(s.location) for s in (core, facts)),
+        ]
 
 
 def _attribute(element: ET.Element, name: str, default: str) -> str:
@@ -357,6 +373,16 @@ def _spec_tables(
                     for name in names
                 }
             )
+
+
+def source_files(mapping: Mapping) -> list[Path]:
+    """Every file a `dwca` or `datapackage` source reads (the build's checksum covers them
+    all, so a changed data file is never taken for an unchanged source): the zip itself, or
+    the meta.xml or datapackage.json and the data files it names."""
+    if mapping.format == "datapackage":
+        return [mapping.path, *_resource(mapping).paths]
+    with _ArchiveFiles(mapping, Limits()) as files:
+        return [mapping.path] if files.zip is not None else files.files()
 
 
 def read_dwca(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:

@@ -271,7 +271,13 @@ SOURCES = Resource(
         Column("format", "string", "csv, tsv or parquet.", required=True),
         Column("level", "string", "individual or population.", required=True),
         Column("layout", "string", "wide or long.", required=True),
-        Column("sha256", "string", "SHA-256 of the input file.", required=True),
+        Column(
+            "sha256",
+            "string",
+            "SHA-256 of the input file; for an unpacked archive or a Data Package, one SHA-256 "
+            "over the name and SHA-256 of the descriptor and of each data file it names.",
+            required=True,
+        ),
         Column("citation", "string", "How to cite the source."),
         Column("licence", "string", "Licence of the source."),
         Column("rows_read", "integer", "Data rows read.", required=True),

@@ -320,6 +320,41 @@ def test_foreign_data_package_parquet_resource_is_a_source(tmp_path):
     assert report.accounts[0].cells_empty == 1
 
 
+def test_changed_data_file_of_a_package_is_read_again(tmp_path):
+    # The descriptor stays the same; only the resource's data changes. A scheduled build must
+    # not reuse the cached values of the old file.
+    resource = {"name": "animals", "path": "animals.csv"}
+    write_package(tmp_path, resource, {"animals.csv": "species,animal,mass,svl\nP m,a1,5.5,60\n"})
+    root = project(tmp_path, PACKAGE_MAPPING.format(read="read: {resource: animals}\n"))
+    first = build_project(load_project(root), output=root / "out")
+    data = tmp_path / "data" / "pkg" / "animals.csv"
+    data.write_text("species,animal,mass,svl\nP m,a1,7.5,60\n")
+    second = build_project(load_project(root), output=root / "out")
+    assert second.reused_sources == ()
+    values = second.tables["individual_values"].set_index("trait_id")["value"]
+    assert values["body_mass_wet"] == 7.5
+    sha = [r.tables["sources"]["sha256"].iloc[0] for r in (first, second)]
+    assert sha[0] != sha[1]
+    third = build_project(load_project(root), output=root / "out")  # nothing changed now
+    assert third.reused_sources == ("foreign-package",)
+
+
+def test_changed_extension_of_an_unpacked_archive_is_read_again(tmp_path):
+    folder = tmp_path / "data" / "lizards"
+    folder.mkdir(parents=True)
+    (folder / "meta.xml").write_text(meta_xml())
+    (folder / "occurrence.txt").write_text(CORE)
+    (folder / "mof.txt").write_text(FACTS)
+    mapping = DWCA_MAPPING.format(path="../data/lizards/meta.xml", format="format: dwca\n")
+    root = project(tmp_path, mapping)
+    build_project(load_project(root), output=root / "out")
+    (folder / "mof.txt").write_text(FACTS.replace("occ-1\tbody mass\t5.2", "occ-1\tbody mass\t5.9"))
+    report = build_project(load_project(root), output=root / "out")
+    assert report.reused_sources == ()
+    values = report.tables["individual_values"].sort_values("source_row")
+    assert values["value"].iloc[0] == 5.9
+
+
 def test_data_package_with_several_resources_needs_one_named(tmp_path):
     resource = {"name": "animals", "path": "animals.csv"}
     write_package(tmp_path, resource, {"animals.csv": "species,animal,mass,svl\n"})
