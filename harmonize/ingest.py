@@ -22,6 +22,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from harmonize import sources, tables
+from harmonize.ahead import ahead
 from harmonize.assemble import SourcePlan, assemble_batch
 from harmonize.cells import CellBatch
 from harmonize.errors import ConfigError
@@ -313,7 +314,8 @@ def _local_stager(project: Project, settings: BuildSettings, decisions: dict) ->
     """Read the source's file here, batch by batch, learning new names as they appear."""
 
     def staged(plan: SourcePlan) -> Iterator[StagedBatch]:
-        for batch in sources.iter_cells(plan.mapping, project.limits):
+        # the next batch is read and reshaped on a thread while this one is assembled
+        for batch in ahead(sources.iter_cells(plan.mapping, project.limits), name="reader"):
             names = Coded.of(batch.cells["original_name"])
             distinct = names.texts[pd.unique(names.codes)]  # in order of first appearance
             learn_names(plan, ["" if n is None else n for n in distinct], settings, decisions)
