@@ -326,6 +326,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         targets = [*canon_texts, "dimensionless"]
         target = np.where(stat[index] == _CV, len(canon_texts), canon_of_name[name_codes[index]])
         pair = text_of_code[unit_coded.codes[index]].astype(np.int64) * len(targets) + target
+        pair = pair * 2 + (stat[index] == _VARIANCE)  # a variance may come in the unit squared
         pair_codes, pair_uniques = pd.factorize(pair)
         pair_scale, pair_offset = np.ones(len(pair_uniques)), np.zeros(len(pair_uniques))
         pair_reason = np.full(len(pair_uniques), None, dtype=object)
@@ -333,8 +334,10 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         pair_flag = np.zeros(len(pair_uniques), dtype=np.int32)
         flag_texts = [""]
         for code, key in enumerate(pair_uniques):
+            key, of_variance = divmod(key, 2)
             raw, canon = unit_texts[key // len(targets)], targets[key % len(targets)]
-            conv = units.conversion(
+            convert = units.variance_conversion if of_variance else units.conversion
+            conv = convert(
                 raw if isinstance(raw, str) else None,
                 canon if isinstance(canon, str) else "dimensionless",
             )

@@ -517,3 +517,26 @@ def conversion(raw_unit: str | None, canonical_unit: str) -> Conversion:
             source_text,
         )
     return Conversion(scale, offset, source_text, None, "", flags)
+
+
+@functools.lru_cache(maxsize=1024)
+def variance_conversion(raw_unit: str | None, canonical_unit: str) -> Conversion:
+    """The conversion of a variance to a trait's canonical unit. A variance may be given in the
+    trait unit squared ('g²', 'mm^2', 'K2') or, as sources often write it, in the trait unit
+    itself ('g'). Either way `scale` is the factor of the trait unit, which the variance takes
+    squared (and never an offset: a variance of temperatures is one of differences)."""
+    linear = conversion(raw_unit, canonical_unit)
+    if linear.reason != RejectReason.DIMENSION_MISMATCH:
+        return linear
+    square = _difference_unit(_canonical(canonical_unit)) ** 2
+    reading = _read(str(_as_text(raw_unit)), _dimension_key(square))
+    if isinstance(reading, UnitProblem) or reading.unit.dimensionality != square.dimensionality:
+        return _failed(
+            RejectReason.DIMENSION_MISMATCH,
+            f"{linear.message}; a variance may be given in the trait unit or its square",
+            linear.source_unit,
+        )
+    squared_scale, _ = _affine(reading.unit, square)
+    return Conversion(
+        float(np.sqrt(squared_scale)), 0.0, format(reading.unit, "C"), None, "", reading.flags
+    )

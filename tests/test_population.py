@@ -61,6 +61,38 @@ def test_sd_from_variance_and_from_cv(tmp_path: Path) -> None:
     assert out.loc["m", "mean"] == pytest.approx(50.0)
 
 
+def test_variance_in_the_squared_unit(tmp_path: Path) -> None:
+    # A variance's own unit is the square of the measurement's (definition of the variance).
+    # 4 g2 is an SD of 2 g; 4e-6 kg2 = 4 g2 (1 kg = 1000 g, NIST SP 811 App. B, squared);
+    # 3.24 degF2 = 1 degC2 (a temperature difference of 1.8 degF is 1 degC, NIST SP 811 B.9).
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body mass,mean,50,g,10\n"
+        "Sorex minutus,f,body mass,variance,4,g²,10\n"
+        "Sorex minutus,m,body mass,mean,0.05,kg,12\n"
+        "Sorex minutus,m,body mass,variance,0.000004,kg^2,12\n"
+        "Sorex araneus,f,body temperature,mean,98.6,degF,8\n"
+        "Sorex araneus,f,body temperature,variance,3.24,degF^2,8\n"
+        "Sorex araneus,m,body mass,mean,9,g,5\n"
+        "Sorex araneus,m,body mass,variance,4,mm^2,5\n"  # a length squared: not a mass
+    )
+    root = project(tmp_path, table, LONG_POP)
+    frames, accounts, _ = build_tables(load_project(root))
+    assert all(a.balanced for a in accounts)
+    out = frames["population_summaries"].set_index(["taxon", "sex"])
+    for key in [("Sorex minutus", "f"), ("Sorex minutus", "m")]:
+        assert out.loc[key, "variance"] == pytest.approx(4.0)
+        assert out.loc[key, "sd"] == pytest.approx(2.0)
+        assert out.loc[key, "sd_method"] == "from variance"
+    assert out.loc[("Sorex araneus", "f"), "mean"] == pytest.approx(37.0)
+    assert out.loc[("Sorex araneus", "f"), "variance"] == pytest.approx(1.0)
+    assert out.loc[("Sorex araneus", "f"), "sd"] == pytest.approx(1.0)
+    rejects = frames["rejects"]
+    bad = rejects[rejects["raw_unit"] == "mm^2"]
+    assert list(bad["reason"]) == ["dimension-mismatch"]
+    assert "its square" in bad["message"].iloc[0]
+
+
 def test_temperature_sd_has_no_offset(tmp_path: Path) -> None:
     # an SD of 0.64 K is an SD of 0.64 degC (SI Brochure 9th ed. 2.3.1: a temperature difference
     # has the same value in K and degC); an SD of 1.8 degF is 1 degC (NIST SP 811 B.9)
