@@ -9,6 +9,7 @@ cells into summaries is left to `summaries`; writing files is left to `package`.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -37,7 +38,9 @@ STATISTIC_ALIASES = {
     "q1": "q1", "lower quartile": "q1", "25%": "q1", "p25": "q1",
     "q3": "q3", "upper quartile": "q3", "75%": "q3", "p75": "q3",
     "ci_low": "ci_low", "lcl": "ci_low", "lower ci": "ci_low", "ci lower": "ci_low", "ci_lower": "ci_low",
+    "ci low": "ci_low", "low ci": "ci_low", "ci lo": "ci_low", "lower confidence limit": "ci_low",
     "ci_high": "ci_high", "ucl": "ci_high", "upper ci": "ci_high", "ci upper": "ci_high", "ci_upper": "ci_high",
+    "ci high": "ci_high", "high ci": "ci_high", "ci hi": "ci_high", "upper confidence limit": "ci_high",
     "variance": "variance", "var": "variance", "s2": "variance", "s²": "variance", "sd2": "variance",
     "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
 }  # fmt: skip
@@ -94,8 +97,27 @@ def _statistic_index(codes) -> np.ndarray:
     )
 
 
-def _statistic_code(text: object) -> str | None:
-    return STATISTIC_ALIASES.get(text.strip().lower()) if isinstance(text, str) else None
+# a confidence level written into a bound's name: '95% CI low', 'lower 95 % CI', 'CI (90%) upper'
+_CI_LEVEL = re.compile(r"\(?\s*(\d{2}(?:\.\d+)?)\s*%\s*\)?")
+
+
+def _statistic_reading(text: object) -> tuple[str | None, float | None]:
+    """A statistic spelling's code and, for a confidence bound that names it, its level as a
+    fraction ('95% CI low' -> ('ci_low', 0.95)); (None, None) when the spelling is unknown."""
+    if not isinstance(text, str):
+        return None, None
+    spelled = text.strip().lower()
+    code = STATISTIC_ALIASES.get(spelled)
+    if code is not None:
+        return code, None
+    found = _CI_LEVEL.search(spelled)
+    if found is None:
+        return None, None
+    rest = " ".join(_CI_LEVEL.sub(" ", spelled).replace("(", " ").replace(")", " ").split())
+    code = STATISTIC_ALIASES.get(rest)
+    if code not in ("ci_low", "ci_high"):
+        return None, None
+    return code, float(found.group(1)) / 100.0
 
 
 REJECT_COLUMNS = ("source_row", "column", "original_name", "raw_value", "raw_unit", "reason", "message")  # fmt: skip
@@ -238,7 +260,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # 5. statistic, as an index into STATISTIC_CODES (-1: none given): declared spellings are
     # worked out once each, hints once per name
     declared = Coded.of(cells["statistic"])
-    known = np.array([_statistic_code(t) for t in declared.texts], dtype=object)
+    readings = [_statistic_reading(t) for t in declared.texts]
+    known = np.array([code for code, _ in readings], dtype=object)
     given = np.array([isinstance(t, str) and t.strip() != "" for t in declared.texts], dtype=bool)
     fate.reject(
         (given & pd.isna(known))[declared.codes],
@@ -246,6 +269,20 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         lambda at: [
             f"unknown statistic '{s}'; use one of {', '.join(STATISTIC_CODES)}"
             for s in declared.texts[declared.codes[at]]
+        ],
+    )
+    # a bound naming its confidence level must agree with the mapping's `ci_level`
+    other_level = np.array(
+        [level is not None and abs(level - mapping.ci_level) > 1e-9 for _, level in readings],
+        dtype=bool,
+    )
+    fate.reject(
+        other_level[declared.codes],
+        RejectReason.INVALID_STATISTIC,
+        lambda at: [
+            f"'{s}' is a bound of a {readings[c][1] * 100:g}% interval, but this source's ci_level "
+            f"is {mapping.ci_level:g}; set ci_level: {readings[c][1]:g} in the mapping"
+            for c, s in zip(declared.codes[at], declared.texts[declared.codes[at]], strict=True)
         ],
     )
     stat = _statistic_index(known)[declared.codes]

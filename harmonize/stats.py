@@ -49,6 +49,7 @@ FLAGS = (
     "mean-estimated",
     "ci-level-assumed-95",
     "n-missing",
+    "n-unreadable",
     "sd-inconsistent",
     "sd-underivable",
     "ci-asymmetric",

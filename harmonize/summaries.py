@@ -9,6 +9,7 @@ earlier (`assemble`); writing happens later (`package`).
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -57,6 +58,10 @@ class SummaryResult:
     summaries: pd.DataFrame
     rejects: pd.DataFrame
     cells_written: int
+
+
+# a sample size written with its name: 'n=9', 'N = 9', 'n: 9'
+_N_PREFIX = re.compile(r"^\s*[nN]\s*[=:]\s*")
 
 
 def _joined(series: pd.Series) -> str | None:
@@ -126,12 +131,17 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
         if name not in wide.columns:
             wide[name] = np.nan
     wide = wide[list(STATISTIC_FIELDS)]
-    # sample size from a context column (wide) or an n column (long) fills a missing n statistic
-    n_raw = values.parse_numbers(
-        numbers["n_raw"], decimal=mapping.read.decimal, missing=mapping.read.missing
-    ).value
-    n_context = pd.Series(n_raw, index=numbers.index).groupby(numbers["group"]).first()
+    # sample size from a context column (wide) or an n column (long) fills a missing n statistic;
+    # 'n=9', 'N = 9' and 'n: 9' are read as 9; other text that is not a number is flagged
+    n_text = numbers["n_raw"].astype(object).where(numbers["n_raw"].notna(), None)
+    n_text = n_text.map(lambda v: _N_PREFIX.sub("", v) if isinstance(v, str) else v)
+    n_parsed = values.parse_numbers(
+        n_text, decimal=mapping.read.decimal, missing=mapping.read.missing
+    )
+    by_group = numbers["group"]
+    n_context = pd.Series(n_parsed.value, index=numbers.index).groupby(by_group).first()
     wide["n"] = wide["n"].fillna(n_context.reindex(wide.index))
+    unreadable = pd.Series(pd.notna(n_parsed.reason), index=numbers.index).groupby(by_group).any()
     wide["ci_level"] = (
         mapping.ci_level if numbers["statistic"].isin(["ci_low", "ci_high"]).any() else np.nan
     )
@@ -148,6 +158,10 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
             "cell_flags": first["flags"].agg(_flag_union),
         }
     )
+    extra["cell_flags"] = [
+        _union_of_flags(f, "n-unreadable" if bad else None)
+        for f, bad in zip(extra["cell_flags"], unreadable.reindex(extra.index), strict=True)
+    ]
     summary = pd.concat([carried, extra, normalised], axis=1)
 
     bad_groups = summary.index[summary["reason"].notna()]

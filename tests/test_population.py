@@ -93,6 +93,55 @@ def test_variance_in_the_squared_unit(tmp_path: Path) -> None:
     assert "its square" in bad["message"].iloc[0]
 
 
+def test_confidence_bounds_that_name_their_level(tmp_path: Path) -> None:
+    # SD from a 95% CI with n = 10: sqrt(n) * (high - low) / (2 * t(0.975, 9)), t = 2.262 (any
+    # t table; Cochrane Handbook 6.5.2.2). 48.57..51.43 gives SD = 3.1623 * 2.86 / 4.524 = 1.999.
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body mass,mean,50,g,10\n"
+        "Sorex minutus,f,body mass,95% CI low,48.57,g,10\n"
+        "Sorex minutus,f,body mass,95% CI high,51.43,g,10\n"
+        "Sorex minutus,m,body mass,mean,50,g,10\n"
+        "Sorex minutus,m,body mass,lower 90% CI,48.9,g,10\n"  # not this source's 0.95
+    )
+    root = project(tmp_path, table, LONG_POP)
+    frames, accounts, _ = build_tables(load_project(root))
+    assert all(a.balanced for a in accounts)
+    out = frames["population_summaries"].set_index("sex")
+    assert out.loc["f", "sd_method"] == "from ci"
+    assert out.loc["f", "sd"] == pytest.approx(1.999, rel=1e-3)
+    assert out.loc["f", "ci_level"] == pytest.approx(0.95)
+    rejects = frames["rejects"]
+    bad = rejects[rejects["raw_value"].astype(str) == "48.9"]
+    assert list(bad["reason"]) == ["invalid-statistic"]
+    assert "90% interval" in bad["message"].iloc[0]
+    assert "ci_level: 0.9" in bad["message"].iloc[0]
+
+
+def test_sample_size_written_with_its_name(tmp_path: Path) -> None:
+    # SD = SE * sqrt(n) (Cochrane Handbook 6.5.2.2): SE 1 g with 'n=9' is SD 3 g. An n cell
+    # that is no count leaves n unknown, and the summary says why.
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body mass,mean,50,g,n=9\n"
+        "Sorex minutus,f,body mass,se,1,g,n=9\n"
+        "Sorex minutus,m,body mass,mean,50,g,N = 16\n"
+        "Sorex minutus,m,body mass,se,1,g,N = 16\n"
+        "Sorex araneus,f,body mass,mean,9,g,a few\n"
+        "Sorex araneus,f,body mass,se,1,g,a few\n"
+    )
+    root = project(tmp_path, table, LONG_POP)
+    frames, accounts, _ = build_tables(load_project(root))
+    assert all(a.balanced for a in accounts)
+    out = frames["population_summaries"].set_index(["taxon", "sex"])
+    assert out.loc[("Sorex minutus", "f"), "n"] == 9
+    assert out.loc[("Sorex minutus", "f"), "sd"] == pytest.approx(3.0)
+    assert out.loc[("Sorex minutus", "m"), "sd"] == pytest.approx(4.0)
+    unknown = out.loc[("Sorex araneus", "f")]
+    assert pd.isna(unknown["n"]) and pd.isna(unknown["sd"])
+    assert unknown["flags"].split(";")[:2] == ["n-unreadable", "n-missing"]
+
+
 def test_temperature_sd_has_no_offset(tmp_path: Path) -> None:
     # an SD of 0.64 K is an SD of 0.64 degC (SI Brochure 9th ed. 2.3.1: a temperature difference
     # has the same value in K and degC); an SD of 1.8 degF is 1 degC (NIST SP 811 B.9)
