@@ -9,7 +9,6 @@ cells into summaries is left to `summaries`; writing files is left to `package`.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -20,30 +19,12 @@ from harmonize import lookup_tables, units, values
 from harmonize.errors import RejectReason
 from harmonize.match import NameMatch
 from harmonize.project import STATISTICS, Mapping
+from harmonize.statistic_names import read_statistic
 from harmonize.taxa import clean_taxon_names
 from harmonize.temperature import TemperatureCorrection, correct_rates, temperature_problems
 from harmonize.text_columns import Coded, choose, join_per_row, rows_frame, rows_table
 from harmonize.vocab import Vocabulary
 
-# Statistic spellings met in long tables and column names -> our statistic codes.
-STATISTIC_ALIASES = {
-    "value": "value", "individual": "value", "raw": "value",
-    "mean": "mean", "avg": "mean", "average": "mean", "x̄": "mean", "mittelwert": "mean", "moyenne": "mean",
-    "media": "mean",
-    "sd": "sd", "s.d.": "sd", "std": "sd", "stdev": "sd", "std.dev": "sd", "std dev": "sd",
-    "standard deviation": "sd",
-    "se": "se", "s.e.": "se", "sem": "se", "s.e.m.": "se", "std.err": "se", "standard error": "se",
-    "n": "n", "count": "n", "sample size": "n", "sample_size": "n",
-    "min": "min", "minimum": "min", "max": "max", "maximum": "max", "median": "median",
-    "q1": "q1", "lower quartile": "q1", "25%": "q1", "p25": "q1",
-    "q3": "q3", "upper quartile": "q3", "75%": "q3", "p75": "q3",
-    "ci_low": "ci_low", "lcl": "ci_low", "lower ci": "ci_low", "ci lower": "ci_low", "ci_lower": "ci_low",
-    "ci low": "ci_low", "low ci": "ci_low", "ci lo": "ci_low", "lower confidence limit": "ci_low",
-    "ci_high": "ci_high", "ucl": "ci_high", "upper ci": "ci_high", "ci upper": "ci_high", "ci_upper": "ci_high",
-    "ci high": "ci_high", "high ci": "ci_high", "ci hi": "ci_high", "upper confidence limit": "ci_high",
-    "variance": "variance", "var": "variance", "s2": "variance", "s²": "variance", "sd2": "variance",
-    "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
-}  # fmt: skip
 STATISTIC_CODES = STATISTICS
 SPREAD_STATISTICS = ("sd", "se")  # convert by |scale|, never with an offset
 # the statistics a trait's plausible range applies to
@@ -95,29 +76,6 @@ def _statistic_index(codes) -> np.ndarray:
     return np.array(
         [_STATISTIC_INDEX.get(c, -1) if isinstance(c, str) else -1 for c in codes], dtype=np.int8
     )
-
-
-# a confidence level written into a bound's name: '95% CI low', 'lower 95 % CI', 'CI (90%) upper'
-_CI_LEVEL = re.compile(r"\(?\s*(\d{2}(?:\.\d+)?)\s*%\s*\)?")
-
-
-def _statistic_reading(text: object) -> tuple[str | None, float | None]:
-    """A statistic spelling's code and, for a confidence bound that names it, its level as a
-    fraction ('95% CI low' -> ('ci_low', 0.95)); (None, None) when the spelling is unknown."""
-    if not isinstance(text, str):
-        return None, None
-    spelled = text.strip().lower()
-    code = STATISTIC_ALIASES.get(spelled)
-    if code is not None:
-        return code, None
-    found = _CI_LEVEL.search(spelled)
-    if found is None:
-        return None, None
-    rest = " ".join(_CI_LEVEL.sub(" ", spelled).replace("(", " ").replace(")", " ").split())
-    code = STATISTIC_ALIASES.get(rest)
-    if code not in ("ci_low", "ci_high"):
-        return None, None
-    return code, float(found.group(1)) / 100.0
 
 
 REJECT_COLUMNS = ("source_row", "column", "original_name", "raw_value", "raw_unit", "reason", "message")  # fmt: skip
@@ -260,7 +218,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # 5. statistic, as an index into STATISTIC_CODES (-1: none given): declared spellings are
     # worked out once each, hints once per name
     declared = Coded.of(cells["statistic"])
-    readings = [_statistic_reading(t) for t in declared.texts]
+    readings = [read_statistic(t) for t in declared.texts]
     known = np.array([code for code, _ in readings], dtype=object)
     given = np.array([isinstance(t, str) and t.strip() != "" for t in declared.texts], dtype=bool)
     fate.reject(
@@ -346,6 +304,17 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     if len(both):
         declared_text = declared_coded.texts[declared_coded.codes[both]]
         unit_differs[both] = declared_text != cell_coded.texts[cell_coded.codes[both]]
+    # a unit in the cell and another in the column's name: the cell's is used, and flagged
+    cell_not_hint = np.zeros(count, dtype=bool)
+    with_hint = np.flatnonzero(has_cell & has_hint & ~has_declared)
+    if len(with_hint):
+        pairs = pd.MultiIndex.from_arrays([cell_coded.codes[with_hint], name_codes[with_hint]])
+        pair_codes, pair_uniques = pd.factorize(pairs)
+        differs = np.array(
+            [not units.same_unit(cell_coded.texts[c], hint_texts[n]) for c, n in pair_uniques],
+            dtype=bool,
+        )
+        cell_not_hint[with_hint] = differs[pair_codes]
     scale = np.ones(count)
     offset = np.zeros(count)
     conversion_flags = Coded(np.zeros(count, dtype=np.int32), [""])  # text per unit pair
@@ -447,6 +416,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         _labelled("qualifier:", qualifier),
         conversion_flags,
         (unit_differs, "cell-unit-differs-from-declared"),
+        (cell_not_hint, "cell-unit-differs-from-name"),
         (origin == 2, "unit-from-name"),
         (assumed_mean, "statistic-assumed-mean"),
         (pd.notna(correction_label), "temperature-corrected"),

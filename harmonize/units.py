@@ -540,3 +540,15 @@ def variance_conversion(raw_unit: str | None, canonical_unit: str) -> Conversion
     return Conversion(
         float(np.sqrt(squared_scale)), 0.0, format(reading.unit, "C"), None, "", reading.flags
     )
+
+
+def same_unit(first: str, second: str) -> bool:
+    """Whether two unit spellings name the same unit ('g' and 'gram' do; 'mm' and 'cm' do
+    not), e.g. a cell's unit and the one in its column's name. An unreadable one does not."""
+    if first.strip() == second.strip():
+        return True
+    try:
+        same = conversion(first, second)
+    except ConfigError:  # the second cannot serve as a target
+        return False
+    return same.ok and same.scale == 1.0 and same.offset == 0.0

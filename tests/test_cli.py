@@ -98,6 +98,32 @@ def test_quick_mode_on_a_messy_table(tmp_path: Path, capsys) -> None:
     assert "individual values:    7" in out
 
 
+def test_cell_unit_other_than_the_headers_is_used_and_flagged(tmp_path: Path, capsys) -> None:
+    # 1 cm = 10 mm (NIST SP 811, App. B). '45 mm' under 'SVL (cm)': the cell's unit is used and
+    # flagged; '4,1 gram' under 'Body mass [g]' is the same unit and is not.
+    table = tmp_path / "sheet.csv"
+    table.write_text(
+        "Species;SVL (cm);Body mass [g]\n"
+        "Podarcis muralis;5,52;4,1 gram\n"
+        "Podarcis muralis;45 mm;3,9\n",
+        encoding="utf-8",
+    )
+    code, _, err = run(
+        ["quick", str(table), "--taxon", "Species", "--delimiter", ";", "--decimal", ",", "-q"],
+        capsys,
+    )
+    assert code == 0, err
+    values = pd.read_csv(tmp_path / "sheet-harmonized" / "individual_values.csv")
+    values = values.set_index(["source_row", "trait_id"])
+    svl = values.xs("snout_vent_length", level="trait_id")
+    assert svl["value"].tolist() == pytest.approx([55.2, 45.0])
+    assert "cell-unit-differs-from-name" not in str(svl.loc[1, "flags"])
+    assert "cell-unit-differs-from-name" in svl.loc[2, "flags"].split(";")
+    mass = values.xs("body_mass_wet", level="trait_id")
+    assert mass["value"].tolist() == pytest.approx([4.1, 3.9])
+    assert not any("cell-unit-differs" in str(f) for f in mass["flags"])
+
+
 def test_quick_mode_rejects_half_a_long_layout(tmp_path: Path, capsys) -> None:
     table = tmp_path / "t.csv"
     table.write_text("a,b\n1,2\n", encoding="utf-8")
