@@ -277,7 +277,7 @@ def _key_hashes(batch: pa.RecordBatch, columns: list[str]) -> np.ndarray:
     """A 64-bit hash of each row's key: 8 bytes a row, whatever the key's width."""
     if len(columns) == 1:  # no frame needed for a one-column key (record_id)
         column = batch.column(columns[0])
-        as_number = _hex_key_numbers(column)
+        as_number = hex_key_numbers(column)
         if as_number is not None:
             return as_number
         values = column.to_numpy(zero_copy_only=False)
@@ -286,7 +286,7 @@ def _key_hashes(batch: pa.RecordBatch, columns: list[str]) -> np.ndarray:
     return pd.util.hash_pandas_object(frame, index=False).to_numpy()
 
 
-def _hex_key_numbers(column: pa.Array | pa.ChunkedArray) -> np.ndarray | None:
+def hex_key_numbers(column: pa.Array | pa.ChunkedArray) -> np.ndarray | None:
     """For a text key whose every cell is 16 hex digits (record ids), the number each cell
     writes, which serves as the key's hash without hashing (one-to-one for lower-case digits;
     other spellings may collide, and the exact comparison clears a collision). None for any

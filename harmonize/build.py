@@ -68,7 +68,9 @@ class BuildReport:
     lock_taken_over: str | None = None  # who held the stale lock this build replaced
     leftovers_removed: tuple[str, ...] = ()  # staging folders etc. of killed runs
     frictionless_checked: bool = True  # frictionless validated it row by row (small packages)
-    changes_skipped: bool = False  # too large for the change report (see SMALL_PACKAGE_ROWS)
+    # no change report: a large package (see SMALL_PACKAGE_ROWS) not asked for one, or one
+    # asked not to make it (`change_report=False`)
+    changes_skipped: bool = False
 
     @property
     def balanced(self) -> bool:
@@ -292,6 +294,7 @@ def build_project(
     incremental: bool | None = None,
     frictionless: bool | None = None,
     inputs: dict[str, SourceInput] | None = None,
+    change_report: bool | None = None,
 ) -> BuildReport:
     """Build the project's package into its output folder (or `output`) and return the report.
 
@@ -299,7 +302,9 @@ def build_project(
     bounded by the batch size (`limits.batch_rows`), not by the input. The written package is
     always checked column-wise with pyarrow (types, required, enums, keys, foreign keys, cell
     accounting); `frictionless` (default: only for small packages, SMALL_PACKAGE_ROWS) also
-    validates it row by row with the frictionless library.
+    validates it row by row with the frictionless library. `change_report` (default: only for small
+    packages) compares the package with the previous one; a large package is compared column by
+    column from the files (`changes.compare_value_files`).
 
     `incremental` (default: on for projects with a project file) reuses the cached output of
     unchanged sources from `.harmonize-cache/` in the project root; `full=True` reads every
@@ -366,16 +371,18 @@ def build_project(
                     hint="the previous output was left untouched",
                 )
             changes = None
-            if small:
+            report_changes = small if change_report is None else change_report
+            if report_changes:
                 changes = compare_packages(
                     output if (output / "datapackage.json").is_file() else None,
                     staging,
                     built_at=datetime.now(UTC).isoformat(timespec="seconds"),
                     reused_sources=tuple(a.source_id for a in accounts if a.reused),
                     full=full,
+                    large=not small,
                 )
             elif progress:
-                progress("changes-skipped", {"rows": values_file.rows})
+                progress("changes-skipped", {"rows": values_file.rows, "large": not small})
             publish.swap_into_place(staging, output, flushing)
         finally:
             if writer is not None:

@@ -14,11 +14,20 @@ fails a build: an unreadable previous package is reported as such and everything
 
 from __future__ import annotations
 
+import csv
 import json
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+
+from harmonize.arrow_validate import hex_key_numbers
 
 # Record ids listed per kind of change in the JSON report; counts are always complete.
 MAX_LISTED_IDS = 1000
@@ -122,13 +131,14 @@ def _safe_resource_file(folder: Path, resource: dict) -> Path:
     return folder / path
 
 
-def read_package_tables(folder: Path) -> dict[str, pd.DataFrame]:
-    """The package's resources as text frames (missing cells as ""), keyed by resource name."""
+def read_package_tables(folder: Path, skip: tuple[str, ...] = ()) -> dict[str, pd.DataFrame]:
+    """The package's resources as text frames (missing cells as ""), keyed by resource name
+    (those in `skip` left out)."""
     descriptor = json.loads((folder / "datapackage.json").read_text(encoding="utf-8"))
     frames = {}
     for resource in descriptor.get("resources", []):
         name = resource.get("name")
-        if name not in _READ_RESOURCES:
+        if name not in _READ_RESOURCES or name in skip:
             continue
         path = _safe_resource_file(folder, resource)
         if path.suffix == ".parquet":
@@ -190,6 +200,213 @@ def compare_values(previous: pd.DataFrame, current: pd.DataFrame) -> ValueChange
     )
 
 
+# ---------------------------------------------------------------- large packages
+# Above the small-package limit the values are not held as text frames: they are compared one
+# column at a time (one column of each package in memory at once), rows aligned by record_id.
+
+
+def _resource_files(folder: Path) -> dict[str, Path]:
+    descriptor = json.loads((folder / "datapackage.json").read_text(encoding="utf-8"))
+    return {
+        str(r.get("name")): _safe_resource_file(folder, r)
+        for r in descriptor.get("resources", [])
+        if r.get("name") in _READ_RESOURCES
+    }
+
+
+def _column_names(path: Path) -> list[str]:
+    if path.suffix == ".parquet":
+        return list(pq.ParquetFile(path).schema_arrow.names)
+    with open(path, encoding="utf-8", newline="") as handle:
+        return next(csv.reader(handle), [])
+
+
+def _column(path: Path, name: str) -> pa.ChunkedArray:
+    """One column of a resource file: typed from Parquet, text from CSV (missing as "")."""
+    if path.suffix == ".parquet":
+        return pq.read_table(path, columns=[name])[name]
+    table = pacsv.read_csv(
+        path,
+        parse_options=pacsv.ParseOptions(newlines_in_values=True),
+        convert_options=pacsv.ConvertOptions(
+            include_columns=[name],
+            column_types={name: pa.string()},
+            strings_can_be_null=False,
+            quoted_strings_can_be_null=False,
+        ),
+    )
+    return table[name]
+
+
+def _differs(before: pa.ChunkedArray, after: pa.ChunkedArray) -> np.ndarray:
+    """Per row, whether two aligned cells differ as the text the package holds: a missing
+    cell, an empty text and NaN are all empty; cells of different types (a switch of format)
+    are compared as text."""
+    if before.type != after.type:
+        before, after = (pc.cast(c, pa.string()) for c in (before, after))
+    if pa.types.is_string(after.type):
+        before, after = (pc.fill_null(c, "") for c in (before, after))
+    missing = [pc.is_null(c, nan_is_null=True) for c in (before, after)]
+    same = pc.or_(pc.fill_null(pc.equal(before, after), False), pc.and_(*missing))
+    return ~same.to_numpy(zero_copy_only=False)
+
+
+def _id_numbers(ids: pa.Array) -> np.ndarray | None:
+    """Record ids as the numbers their 16 lower-case hex digits write (one-to-one), or None
+    when any id is not written so (a foreign or edited package: ids are then compared as
+    text)."""
+    if not len(ids) or ids.type != pa.string():
+        return None
+    if pc.any(pc.match_substring_regex(ids, "[A-F]")).as_py():  # would alias lower case
+        return None
+    return hex_key_numbers(ids)
+
+
+def _aligned(before: pa.Array, after: pa.Array) -> tuple[np.ndarray, ...]:
+    """For two record-id columns (first occurrences only, later repeats ignored as
+    `compare_values` does): the rows of `after` whose id is in `before`, their rows in
+    `before`, the rows of `after` whose id is new, and the rows of `before` whose id is gone."""
+    numbers = [
+        _id_numbers(ids) if len(ids) else np.zeros(0, dtype=np.uint64) for ids in (before, after)
+    ]
+    if all(n is not None for n in numbers):
+        if len(before) == len(after) and np.array_equal(*numbers):  # the same ids in order
+            rows = np.arange(len(after))
+            if pd.Index(numbers[1]).is_unique:
+                return rows, rows, rows[:0], rows[:0]
+        distinct = [pd.Index(n) for n in numbers]
+        if all(index.is_unique for index in distinct):  # as a package's primary key is
+            at_before = distinct[0].get_indexer(numbers[1])
+            found = at_before >= 0
+            referenced = np.zeros(len(before), dtype=bool)
+            referenced[at_before[found]] = True
+            return (
+                np.flatnonzero(found),
+                at_before[found],
+                np.flatnonzero(~found),
+                np.flatnonzero(~referenced),
+            )
+        (before_distinct, before_first), (after_distinct, after_first) = (
+            np.unique(n, return_index=True) for n in numbers
+        )
+        place = np.searchsorted(before_distinct, after_distinct)
+        place[place == len(before_distinct)] = 0
+        found = (
+            before_distinct[place] == after_distinct
+            if len(before_distinct)
+            else np.zeros(len(after_distinct), dtype=bool)
+        )
+        common_after = after_first[found]
+        order = np.argsort(common_after)
+        common_after = common_after[order]
+        common_before = before_first[place[found]][order]
+        referenced = np.zeros(len(before), dtype=bool)
+        referenced[common_before] = True
+        keep_before = np.zeros(len(before), dtype=bool)
+        keep_before[before_first] = True
+        added = np.sort(after_first[~found])
+        return common_after, common_before, added, np.flatnonzero(keep_before & ~referenced)
+    # ids as text: Arrow's hash lookups
+    keep_after = pc.index_in(after, value_set=after).to_numpy(zero_copy_only=False)
+    keep_after = keep_after == np.arange(len(after))
+    keep_before = pc.index_in(before, value_set=before).to_numpy(zero_copy_only=False)
+    keep_before = keep_before == np.arange(len(before))
+    at_before = pc.index_in(after, value_set=before)
+    found = keep_after & at_before.is_valid().to_numpy(zero_copy_only=False)
+    common_after = np.flatnonzero(found)
+    common_before = at_before.to_numpy(zero_copy_only=False)[common_after].astype(np.int64)
+    referenced = np.zeros(len(before), dtype=bool)
+    referenced[common_before] = True
+    added = np.flatnonzero(keep_after & ~found)
+    return common_after, common_before, added, np.flatnonzero(keep_before & ~referenced)
+
+
+def _all_rows(rows: np.ndarray, length: int) -> bool:
+    return len(rows) == length and bool((rows == np.arange(length)).all())
+
+
+def _rows(column: pa.ChunkedArray, rows: np.ndarray | None) -> pa.ChunkedArray:
+    return column if rows is None else column.take(rows)
+
+
+def _counts(texts: pa.Array) -> dict[str, int]:
+    counted = pc.value_counts(pc.fill_null(pc.cast(texts, pa.string()), ""))
+    pairs = zip(
+        counted.field("values").to_pylist(), counted.field("counts").to_pylist(), strict=True
+    )
+    return dict(sorted((str(k), int(v)) for k, v in pairs))
+
+
+def _sorted_ids(ids: pa.Array) -> tuple[str, ...]:
+    if len(ids) == 0:
+        return ()
+    table = pa.table({"id": pc.cast(ids, pa.string())})
+    first = pc.select_k_unstable(table, k=MAX_LISTED_IDS, sort_keys=[("id", "ascending")])
+    return tuple(str(i) for i in table["id"].take(first).to_pylist())
+
+
+def compare_value_files(previous: Path | None, current: Path) -> ValueChanges:
+    """`compare_values` of two resource files (the previous may be None: no previous package),
+    column by column: memory holds the record ids, two columns and a few row masks, never the
+    tables. The counts, listed ids and changed columns are those `compare_values` gives."""
+    after_ids = _column(current, "record_id").combine_chunks()
+    after_names = _column_names(current)
+    if previous is None:
+        before_ids, before_names = pa.array([], after_ids.type), []
+    else:
+        before_ids = _column(previous, "record_id").combine_chunks()
+        before_names = _column_names(previous)
+    common_after, common_before, added_rows, removed_rows = _aligned(before_ids, after_ids)
+    after_count, before_count = len(after_ids), len(before_ids)
+    del after_ids, before_ids  # read again for the listed ids: not held while columns are
+    # rows that are all of a file's rows in order are used as they are, without a copy
+    take_after = None if _all_rows(common_after, after_count) else common_after
+    take_before = None if _all_rows(common_before, before_count) else common_before
+    changed = np.zeros(len(common_after), dtype=bool)
+    column_counts: dict[str, int] = {}
+    shared = [n for n in after_names if n != "record_id" and n in before_names]
+    # the previous file's column is read on a thread while the current one is read here
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="changes") as reader:
+        for name in shared:
+            before = reader.submit(_column, previous, name)
+            after = _rows(_column(current, name), take_after)
+            differs = _differs(_rows(before.result(), take_before), after)
+            if differs.any():
+                column_counts[name] = int(differs.sum())
+            changed |= differs
+    changed_rows = common_after[changed]
+
+    def by(column: str) -> dict[str, dict[str, int]]:
+        parts = {"added": {}, "removed": {}, "changed": {}}
+        if column in after_names:
+            taken = _column(current, column)
+            parts["added"] = _counts(taken.take(added_rows))
+            parts["changed"] = _counts(taken.take(changed_rows))
+        if column in before_names:
+            parts["removed"] = _counts(_column(previous, column).take(removed_rows))  # type: ignore[arg-type]
+        nested: dict[str, dict[str, int]] = {}
+        for kind, counts in parts.items():
+            for key, count in counts.items():
+                nested.setdefault(key, {"added": 0, "removed": 0, "changed": 0})[kind] = count
+        return dict(sorted(nested.items()))
+
+    return ValueChanges(
+        added=len(added_rows),
+        removed=len(removed_rows),
+        changed=len(changed_rows),
+        unchanged=len(common_after) - len(changed_rows),
+        by_trait=by("trait_id"),
+        by_source=by("source_id"),
+        changed_columns=column_counts,
+        added_ids=_sorted_ids(_column(current, "record_id").take(added_rows)),
+        removed_ids=_sorted_ids(
+            _column(previous, "record_id").take(removed_rows) if previous else pa.array([])
+        ),
+        changed_ids=_sorted_ids(_column(current, "record_id").take(changed_rows)),
+        ids_truncated=max(len(added_rows), len(removed_rows), len(changed_rows)) > MAX_LISTED_IDS,
+    )
+
+
 def _review_pairs(frame: pd.DataFrame | None) -> set[tuple[str, str]]:
     if frame is None or frame.empty or "status" not in frame.columns:
         return set()
@@ -204,22 +421,46 @@ def compare_packages(
     built_at: str,
     reused_sources: tuple[str, ...] = (),
     full: bool = False,
+    large: bool = False,
 ) -> ChangeReport:
-    """Compare the package in `current` with the one in `previous` (None: first build)."""
-    new = read_package_tables(current)
+    """Compare the package in `current` with the one in `previous` (None: first build).
+
+    `large`: individual values are compared file to file, column by column
+    (`compare_value_files`), and rejects counted from their reason column, instead of reading
+    those tables whole as text."""
+    skip = ("individual_values", "rejects") if large else ()
+    new = read_package_tables(current, skip)
     old: dict[str, pd.DataFrame] = {}
     problem = None
+    old_files: dict[str, Path] = {}
     if previous is not None:
         try:
-            old = read_package_tables(previous)
+            old = read_package_tables(previous, skip)
+            old_files = _resource_files(previous) if large else {}
         except (OSError, ValueError, KeyError) as error:  # damaged or foreign: report, go on
             problem = f"{type(error).__name__}: {error}"
-            old = {}
+            old, old_files = {}, {}
     empty = pd.DataFrame(columns=["record_id", "trait_id", "source_id"])
     values = {
         name: compare_values(old.get(name, empty), new.get(name, empty))
         for name in _VALUE_RESOURCES
+        if name not in skip
     }
+    if large:
+        new_files = _resource_files(current)
+        try:
+            values["individual_values"] = compare_value_files(
+                old_files.get("individual_values"), new_files["individual_values"]
+            )
+        except (OSError, ValueError, KeyError, pa.ArrowException) as error:
+            problem = f"{type(error).__name__}: {error}"
+            values["individual_values"] = compare_value_files(None, new_files["individual_values"])
+            old, old_files = {}, {}
+        values = {name: values[name] for name in _VALUE_RESOURCES}  # report order
+        for tables, files in ((old, old_files), (new, new_files)):
+            if "rejects" in files:
+                reasons = _column(files["rejects"], "reason").to_pandas()
+                tables["rejects"] = pd.DataFrame({"reason": reasons})
     old_sources = _sha_by_source(old.get("sources"))
     new_sources = _sha_by_source(new.get("sources"))
     review_now = _review_pairs(new.get("name_matches"))

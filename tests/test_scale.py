@@ -26,11 +26,12 @@ from hypothesis import strategies as st
 from harmonize import build, tables
 from harmonize.arrow_validate import (
     ResourceCheck,
-    _hex_key_numbers,
+    hex_key_numbers,
     accounting_problems,
     check_package_arrow,
 )
 from harmonize.build import build_project, build_tables
+from harmonize.changes import compare_values, read_package_tables
 from harmonize.package import (
     PackageInfo,
     ResourceWriter,
@@ -264,10 +265,10 @@ def test_progress_reports_the_share_of_the_file_read(long_project, tmp_path):
 def test_record_id_keys_are_read_as_the_numbers_they_write(numbers):
     # reference: Python's own int(text, 16); any other text is left to hashing (None)
     texts = [f"{n:016x}" for n in numbers]
-    assert _hex_key_numbers(pa.array(texts)).tolist() == [int(t, 16) for t in texts]
-    assert _hex_key_numbers(pa.array([*texts, "X" * 16])) is None
-    assert _hex_key_numbers(pa.array([*texts, None])) is None
-    assert _hex_key_numbers(pa.array([*texts, "abc"])) is None
+    assert hex_key_numbers(pa.array(texts)).tolist() == [int(t, 16) for t in texts]
+    assert hex_key_numbers(pa.array([*texts, "X" * 16])) is None
+    assert hex_key_numbers(pa.array([*texts, None])) is None
+    assert hex_key_numbers(pa.array([*texts, "abc"])) is None
 
 
 def test_values_checked_as_dictionary_text_give_the_problems_plain_text_gives(
@@ -374,3 +375,65 @@ def test_parquet_dictionaries_stay_small(tmp_path):
     assert dictionary_page_bytes("record_id") < 100_000  # < Arrow's 1 MiB default
     assert "RLE_DICTIONARY" in chunks["trait_id"].encodings
     assert dictionary_page_bytes("trait_id") < 200
+
+
+@pytest.mark.parametrize("fmt", ["parquet", "csv"])
+def test_large_change_report_equals_the_in_memory_comparison(
+    long_project, tmp_path, fmt, large_is_small
+):
+    # Above the small-package limit the report compares the package files column by column;
+    # it must say exactly what the text-frame comparison of small packages says.
+    root = tmp_path / "project"
+    shutil.copytree(long_project, root, ignore=shutil.ignore_patterns("out", ".harmonize-*"))
+    text = (root / "harmonize.yaml").read_text(encoding="utf-8")
+    (root / "harmonize.yaml").write_text(
+        text.replace("format: parquet}", f"format: {fmt}}}"), encoding="utf-8"
+    )
+    out = tmp_path / "out"
+    first = build_project(load_project(root), output=out, incremental=False, change_report=True)
+    first_changes = first.changes.values["individual_values"]
+    assert first_changes.added == first.individual_values > SMALL_ROWS_FOR_TESTS
+    assert first_changes.ids_truncated and len(first_changes.added_ids) == 1000
+    shutil.copytree(out, tmp_path / "before")
+
+    source = root / "data" / "long.parquet"
+    table = pq.read_table(source)
+    values = table["value"].to_pylist()
+    measures = table["measure"].to_pylist()
+    for row in range(10, 20):
+        values[row] = "12.5"  # a different value: changed records
+    for row in range(40, 45):
+        measures[row] = "tail length"  # another trait: new record ids (added and removed)
+    table = table.set_column(table.schema.get_field_index("value"), "value", pa.array(values))
+    table = table.set_column(table.schema.get_field_index("measure"), "measure", pa.array(measures))
+    pq.write_table(table.slice(0, len(table) - 30), source)  # the last rows go: removed
+    second = build_project(load_project(root), output=out, incremental=False, change_report=True)
+    got = second.changes.values["individual_values"]
+
+    expected = compare_values(
+        read_package_tables(tmp_path / "before")["individual_values"],
+        read_package_tables(out)["individual_values"],
+    )
+    assert got == expected
+    assert got.changed > 0 and got.added > 0 and got.removed > 0
+    assert got.changed_columns.get("value", 0) > 0
+    assert second.changes.rejects_after == Counter(
+        pd.read_parquet(out / "rejects.parquet")["reason"]
+        if fmt == "parquet"
+        else pd.read_csv(out / "rejects.csv")["reason"]
+    )
+
+
+def test_large_change_report_survives_a_damaged_previous_package(
+    long_project, tmp_path, large_is_small
+):
+    out = tmp_path / "out"
+    build_project(load_project(long_project), output=out, incremental=False, change_report=True)
+    (out / "individual_values.parquet").write_bytes(b"not parquet")
+    report = build_project(
+        load_project(long_project), output=out, incremental=False, change_report=True
+    )
+    assert report.changes.previous_problem is not None
+    assert not report.changes.previous_found
+    assert report.changes.values["individual_values"].added == report.individual_values
+    assert report.changes.values["individual_values"].removed == 0

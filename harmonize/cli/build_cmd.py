@@ -115,6 +115,13 @@ def _counts(report: BuildReport) -> dict:
     "packages of at most 200,000 individual values; every build is checked column-wise).",
 )
 @click.option(
+    "--changes/--no-changes",
+    default=None,
+    help="Compare the package with the previous one and write OUTPUT.changes.json and .txt "
+    "(default: only packages of at most 200,000 individual values; larger ones are compared "
+    "column by column from the files).",
+)
+@click.option(
     "--log-json",
     "log_json",
     type=click.Path(dir_okay=False, allow_dash=True, path_type=Path),
@@ -127,13 +134,14 @@ def build(
     full: bool,
     quiet: bool,
     frictionless: bool | None,
+    changes: bool | None,
     log_json: Path | None,
 ) -> None:
     """Build the data package of PROJECT (a folder with harmonize.yaml, or the file itself).
 
     Unchanged sources are reused from the last build; the package is swapped in only when it
     is complete and valid; what changed is written beside it as OUTPUT.changes.json and
-    OUTPUT.changes.txt (packages of at most 200,000 individual values). A second build of the
+    OUTPUT.changes.txt (packages of at most 200,000 individual values, or with --changes). A second build of the
     same output while one runs is refused. Long builds show rows read, rate and time left.
     """
     with ExitStack() as stack:
@@ -159,6 +167,7 @@ def build(
                 output=output,
                 full=full,
                 frictionless=frictionless,
+                change_report=changes,
                 progress=_progress(log, progress_printer(quiet)),
             )
         except HarmonizeError as error:

@@ -7,7 +7,7 @@ import time
 
 import click
 
-from harmonize.build import BuildReport
+from harmonize.build import SMALL_PACKAGE_ROWS, BuildReport
 from harmonize.changes import report_text
 from harmonize.cli.options import text_table
 
@@ -83,7 +83,11 @@ def summary_lines(report: BuildReport) -> list[str]:
             "validation not run (default only up to 200,000 values; --frictionless runs it)"
         ]
     if report.changes_skipped and report.changes is None:
-        lines.append("change report: skipped for a large package")
+        lines.append(
+            "change report: skipped for a large package (--changes makes it)"
+            if report.individual_values > SMALL_PACKAGE_ROWS
+            else "change report: not made (--no-changes)"
+        )
     if report.changes is not None:
         lines += ["", *report_text(report.changes)]
         if report.changes_files:
@@ -167,9 +171,10 @@ def progress_printer(quiet: bool):
         elif event == "write":
             batches.finish()
             click.echo("writing and validating the package ...", err=True)
-        elif event == "changes-skipped":
+        elif event == "changes-skipped" and detail["large"]:
             click.echo(
-                f"change report skipped: {detail['rows']:,} individual values is a large package",
+                f"change report skipped: {detail['rows']:,} individual values is a large package "
+                "(--changes makes it)",
                 err=True,
             )
 
