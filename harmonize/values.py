@@ -12,6 +12,7 @@ only get whitespace cleaning here (`parse_categories`).
 
 from __future__ import annotations
 
+import re
 from collections.abc import Collection, Sequence
 from dataclasses import dataclass
 
@@ -407,6 +408,32 @@ def _fill_messages(
                 "or declare `decimal: '.'` (or `thousands: '.'`) in the mapping's read options"
             )
     other_mark = pc.fill_null(other_mark, False).to_numpy(zero_copy_only=False)
+    if syntax.thousands is None:
+        # '1.234,5' with decimal ',' (or '1,234.5' with '.'): groups of three digits
+        group = "." if syntax.decimal == "," else ","
+        grouped = pc.match_substring_regex(
+            text,
+            rf"{lead}[+-]?\d{{1,3}}(?:{re.escape(group)}\d{{3}})+"
+            rf"(?:{re.escape(syntax.decimal)}\d+)?{unit_tail}",
+        )
+        grouped = pc.fill_null(grouped, False).to_numpy(zero_copy_only=False) & not_a_number
+        _messages(
+            message,
+            np.flatnonzero(grouped & ~other_mark),
+            shown,
+            "",
+            f" looks like '{group}' between groups of thousands: declare `thousands: '{group}'` "
+            "in the mapping's read options",
+        )
+        _messages(  # '1.234' with decimal ',': a decimal point or a thousands separator
+            message,
+            np.flatnonzero(grouped & other_mark),
+            shown,
+            "",
+            f" has a '{group}' that is either a decimal mark or a thousands separator: declare "
+            f"`decimal: '{group}'` or `thousands: '{group}'` in the mapping's read options",
+        )
+        not_a_number = not_a_number & ~grouped
     _messages(message, np.flatnonzero(not_a_number & other_mark), shown, "", hint)
     _messages(
         message,

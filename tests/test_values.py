@@ -83,6 +83,11 @@ REJECTED = [
     ("12,5", ".", ",", RejectReason.NOT_A_NUMBER, "thousands separator"),  # not 3-digit groups
     ("12.5", ",", None, RejectReason.NOT_A_NUMBER, "decimal: '.'"),
     ("12.5", ",", ".", RejectReason.NOT_A_NUMBER, "thousands separator"),
+    ("1.234,5", ",", None, RejectReason.NOT_A_NUMBER, "thousands: '.'"),  # grouping undeclared
+    ("12.345.678 mg", ",", None, RejectReason.NOT_A_NUMBER, "thousands: '.'"),
+    ("1,234.5", ".", None, RejectReason.NOT_A_NUMBER, "thousands: ','"),
+    ("1,234", ".", None, RejectReason.NOT_A_NUMBER, "decimal: ','` or `thousands: ','"),  # either
+    ("1.234", ",", None, RejectReason.NOT_A_NUMBER, "decimal: '.'` or `thousands: '.'"),
     ("abc", ".", None, RejectReason.NOT_A_NUMBER, "not a number"),
     ("1 234", ".", None, RejectReason.NOT_A_NUMBER, "not a number"),  # grouping not declared
     ("12 (n=3)", ".", None, RejectReason.NOT_A_NUMBER, "not a number"),
