@@ -71,6 +71,19 @@ _SPREAD = [_STATISTIC_INDEX[c] for c in SPREAD_STATISTICS]
 _CENTRAL = [_STATISTIC_INDEX[c] for c in CENTRAL_STATISTICS]
 
 
+def _units_differ(where: np.ndarray, first: Coded, second: Coded) -> np.ndarray:
+    """Per cell, whether two unit texts (both given `where`) name different units; decided
+    once per distinct pair ('g' and 'gram' are the same unit, 'mm' and 'cm' are not)."""
+    differs = np.zeros(len(where), dtype=bool)
+    rows = np.flatnonzero(where)
+    if len(rows):
+        pairs = pd.MultiIndex.from_arrays([first.codes[rows], second.codes[rows]])
+        pair_codes, pair_uniques = pd.factorize(pairs)
+        verdicts = [not units.same_unit(first.texts[a], second.texts[b]) for a, b in pair_uniques]
+        differs[rows] = np.array(verdicts, dtype=bool)[pair_codes]
+    return differs
+
+
 def _statistic_index(codes) -> np.ndarray:
     """Statistic codes as indices into STATISTIC_CODES; -1 where none is given."""
     return np.array(
@@ -299,22 +312,12 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         [has_declared, has_cell], [declared_coded, cell_coded], name_coded.map(hint_texts)
     )
     origin = np.select([has_declared, has_cell, has_hint], [0, 1, 2], 3)  # UNIT_ORIGINS
-    unit_differs = np.zeros(count, dtype=bool)
-    both = np.flatnonzero(has_declared & has_cell)
-    if len(both):
-        declared_text = declared_coded.texts[declared_coded.codes[both]]
-        unit_differs[both] = declared_text != cell_coded.texts[cell_coded.codes[both]]
-    # a unit in the cell and another in the column's name: the cell's is used, and flagged
-    cell_not_hint = np.zeros(count, dtype=bool)
-    with_hint = np.flatnonzero(has_cell & has_hint & ~has_declared)
-    if len(with_hint):
-        pairs = pd.MultiIndex.from_arrays([cell_coded.codes[with_hint], name_codes[with_hint]])
-        pair_codes, pair_uniques = pd.factorize(pairs)
-        differs = np.array(
-            [not units.same_unit(cell_coded.texts[c], hint_texts[n]) for c, n in pair_uniques],
-            dtype=bool,
-        )
-        cell_not_hint[with_hint] = differs[pair_codes]
+    # a unit in the cell and another declared (the mapping's is used) or in the column's name
+    # (the cell's is used): flagged where they name different units
+    unit_differs = _units_differ(has_declared & has_cell, cell_coded, declared_coded)
+    cell_not_hint = _units_differ(
+        has_cell & has_hint & ~has_declared, cell_coded, Coded(name_codes, hint_texts)
+    )
     scale = np.ones(count)
     offset = np.zeros(count)
     conversion_flags = Coded(np.zeros(count, dtype=np.int32), [""])  # text per unit pair

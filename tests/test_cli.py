@@ -124,6 +124,26 @@ def test_cell_unit_other_than_the_headers_is_used_and_flagged(tmp_path: Path, ca
     assert not any("cell-unit-differs" in str(f) for f in mass["flags"])
 
 
+def test_cell_unit_other_than_the_declared_is_flagged(tmp_path: Path, capsys) -> None:
+    # The declared unit wins over a unit in the cell and the value says so; 'gram' is the
+    # declared 'g' spelled out, so it is not flagged.
+    table = tmp_path / "masses.csv"
+    table.write_text(
+        "Species;mass\nPodarcis muralis;4,1 gram\nPodarcis muralis;4100 mg\n", encoding="utf-8"
+    )
+    code, _, err = run(
+        ["quick", str(table), "--taxon", "Species", "--delimiter", ";", "--decimal", ",",
+         "--unit", "mass=g", "-q"],
+        capsys,
+    )  # fmt: skip
+    assert code == 0, err
+    values = pd.read_csv(tmp_path / "masses-harmonized" / "individual_values.csv")
+    values = values.set_index("source_row")
+    assert values["value"].tolist() == pytest.approx([4.1, 4100.0])  # the mapping's g
+    assert "cell-unit-differs-from-declared" not in str(values.loc[1, "flags"])
+    assert "cell-unit-differs-from-declared" in values.loc[2, "flags"].split(";")
+
+
 def test_quick_mode_rejects_half_a_long_layout(tmp_path: Path, capsys) -> None:
     table = tmp_path / "t.csv"
     table.write_text("a,b\n1,2\n", encoding="utf-8")
