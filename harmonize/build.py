@@ -21,7 +21,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from harmonize import __version__, foreign, publish, sources, tables
+from harmonize import __version__, publish, sources, tables
 from harmonize.arrow_validate import ResourceCheck, accounting_problems, check_package_arrow
 from harmonize.changes import ChangeReport, compare_packages, report_text
 from harmonize.errors import BuildError, SourceNotFoundError
@@ -114,10 +114,8 @@ def _source_checksum(mapping: Mapping) -> str:
             file=str(mapping.path),
             hint=f"path declared in {mapping.mapping_file.name}",
         )
-    if mapping.format not in ("dwca", "datapackage"):
-        return sources.file_sha256(mapping.path)
-    files = foreign.source_files(mapping)
-    if len(files) == 1:  # a zipped archive
+    files = sources.source_files(mapping)
+    if len(files) == 1:
         return sources.file_sha256(files[0])
     # a descriptor and the files it names: one digest over each file's name and digest
     digest = hashlib.sha256()

@@ -270,12 +270,11 @@ def _aligned(before: pa.Array, after: pa.Array) -> tuple[np.ndarray, ...]:
         _id_numbers(ids) if len(ids) else np.zeros(0, dtype=np.uint64) for ids in (before, after)
     ]
     if all(n is not None for n in numbers):
-        if len(before) == len(after) and np.array_equal(*numbers):  # the same ids in order
-            rows = np.arange(len(after))
-            if pd.Index(numbers[1]).is_unique:
-                return rows, rows, rows[:0], rows[:0]
         distinct = [pd.Index(n) for n in numbers]
         if all(index.is_unique for index in distinct):  # as a package's primary key is
+            if len(before) == len(after) and np.array_equal(*numbers):  # the same, in order
+                rows = np.arange(len(after))
+                return rows, rows, rows[:0], rows[:0]
             at_before = distinct[0].get_indexer(numbers[1])
             found = at_before >= 0
             referenced = np.zeros(len(before), dtype=bool)
@@ -286,27 +285,7 @@ def _aligned(before: pa.Array, after: pa.Array) -> tuple[np.ndarray, ...]:
                 np.flatnonzero(~found),
                 np.flatnonzero(~referenced),
             )
-        (before_distinct, before_first), (after_distinct, after_first) = (
-            np.unique(n, return_index=True) for n in numbers
-        )
-        place = np.searchsorted(before_distinct, after_distinct)
-        place[place == len(before_distinct)] = 0
-        found = (
-            before_distinct[place] == after_distinct
-            if len(before_distinct)
-            else np.zeros(len(after_distinct), dtype=bool)
-        )
-        common_after = after_first[found]
-        order = np.argsort(common_after)
-        common_after = common_after[order]
-        common_before = before_first[place[found]][order]
-        referenced = np.zeros(len(before), dtype=bool)
-        referenced[common_before] = True
-        keep_before = np.zeros(len(before), dtype=bool)
-        keep_before[before_first] = True
-        added = np.sort(after_first[~found])
-        return common_after, common_before, added, np.flatnonzero(keep_before & ~referenced)
-    # ids as text: Arrow's hash lookups
+    # ids as text, or repeated ids (a foreign or edited package): Arrow's hash lookups
     keep_after = pc.index_in(after, value_set=after).to_numpy(zero_copy_only=False)
     keep_after = keep_after == np.arange(len(after))
     keep_before = pc.index_in(before, value_set=before).to_numpy(zero_copy_only=False)
@@ -377,6 +356,7 @@ def compare_value_files(previous: Path | None, current: Path) -> ValueChanges:
     changed_rows = common_after[changed]
 
     def by(column: str) -> dict[str, dict[str, int]]:
+        # read again rather than kept from the loop above: memory holds two columns at most
         parts = {"added": {}, "removed": {}, "changed": {}}
         if column in after_names:
             taken = _column(current, column)
@@ -457,10 +437,10 @@ def compare_packages(
             values["individual_values"] = compare_value_files(None, new_files["individual_values"])
             old, old_files = {}, {}
         values = {name: values[name] for name in _VALUE_RESOURCES}  # report order
-        for tables, files in ((old, old_files), (new, new_files)):
+        for frames, files in ((old, old_files), (new, new_files)):
             if "rejects" in files:
                 reasons = _column(files["rejects"], "reason").to_pandas()
-                tables["rejects"] = pd.DataFrame({"reason": reasons})
+                frames["rejects"] = pd.DataFrame({"reason": reasons})
     old_sources = _sha_by_source(old.get("sources"))
     new_sources = _sha_by_source(new.get("sources"))
     review_now = _review_pairs(new.get("name_matches"))

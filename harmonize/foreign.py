@@ -378,7 +378,7 @@ def _spec_tables(
 def source_files(mapping: Mapping) -> list[Path]:
     """Every file a `dwca` or `datapackage` source reads (the build's checksum covers them
     all, so a changed data file is never taken for an unchanged source): the zip itself, or
-    the meta.xml or datapackage.json and the data files it names."""
+    the meta.xml or datapackage.json and the data files it names, in that order."""
     if mapping.format == "datapackage":
         return [mapping.path, *_resource(mapping).paths]
     with _ArchiveFiles(mapping, Limits()) as files:

@@ -310,6 +310,14 @@ READERS: dict[str, tuple[Callable[[Mapping], list[str]], Reader]] = {
 }
 
 
+def source_files(mapping: Mapping) -> list[Path]:
+    """Every file a source reads: its table, or (unpacked archives, Data Packages) the
+    descriptor and the data files it names."""
+    if mapping.format in ("dwca", "datapackage"):
+        return foreign.source_files(mapping)
+    return [mapping.path]
+
+
 def read_header(mapping: Mapping) -> list[str]:
     if not mapping.path.is_file():
         raise SourceNotFoundError(

@@ -182,14 +182,19 @@ def test_parquet_resource_of_a_data_package_is_read_in_batches(tmp_path):
     assert list(joined["mass"]) == ["" if i % 4 == 0 else f"{i}.5" for i in range(10)]
 
 
-def test_unpacked_archive_is_read_through_its_meta_xml(tmp_path):
-    folder = tmp_path / "data" / "lizards"
+def unpacked_archive_project(root: Path) -> Path:
+    """The archive of `archive_project` unpacked into a folder, read through its meta.xml."""
+    folder = root / "data" / "lizards"
     folder.mkdir(parents=True)
     (folder / "meta.xml").write_text(meta_xml())
     (folder / "occurrence.txt").write_text(CORE)
     (folder / "mof.txt").write_text(FACTS)
     mapping = DWCA_MAPPING.format(path="../data/lizards/meta.xml", format="format: dwca\n")
-    check_archive_build(project(tmp_path, mapping))
+    return project(root, mapping)
+
+
+def test_unpacked_archive_is_read_through_its_meta_xml(tmp_path):
+    check_archive_build(unpacked_archive_project(tmp_path))
 
 
 def test_archive_header_names_core_and_extension_terms(tmp_path):
@@ -340,13 +345,8 @@ def test_changed_data_file_of_a_package_is_read_again(tmp_path):
 
 
 def test_changed_extension_of_an_unpacked_archive_is_read_again(tmp_path):
+    root = unpacked_archive_project(tmp_path)
     folder = tmp_path / "data" / "lizards"
-    folder.mkdir(parents=True)
-    (folder / "meta.xml").write_text(meta_xml())
-    (folder / "occurrence.txt").write_text(CORE)
-    (folder / "mof.txt").write_text(FACTS)
-    mapping = DWCA_MAPPING.format(path="../data/lizards/meta.xml", format="format: dwca\n")
-    root = project(tmp_path, mapping)
     build_project(load_project(root), output=root / "out")
     (folder / "mof.txt").write_text(FACTS.replace("occ-1\tbody mass\t5.2", "occ-1\tbody mass\t5.9"))
     report = build_project(load_project(root), output=root / "out")

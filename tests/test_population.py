@@ -38,10 +38,15 @@ columns: {trait: trait, value: value, unit: unit, statistic: statistic, n: n}
 """
 
 
-def summaries(root: Path) -> pd.DataFrame:
+def built(root: Path) -> dict[str, pd.DataFrame]:
+    """The project's tables, every cell accounted for."""
     frames, accounts, _ = build_tables(load_project(root))
     assert all(a.balanced for a in accounts)
-    return frames["population_summaries"]
+    return frames
+
+
+def summaries(root: Path) -> pd.DataFrame:
+    return built(root)["population_summaries"]
 
 
 def test_sd_from_variance_and_from_cv(tmp_path: Path) -> None:
@@ -76,9 +81,7 @@ def test_variance_in_the_squared_unit(tmp_path: Path) -> None:
         "Sorex araneus,m,body mass,mean,9,g,5\n"
         "Sorex araneus,m,body mass,variance,4,mm^2,5\n"  # a length squared: not a mass
     )
-    root = project(tmp_path, table, LONG_POP)
-    frames, accounts, _ = build_tables(load_project(root))
-    assert all(a.balanced for a in accounts)
+    frames = built(project(tmp_path, table, LONG_POP))
     out = frames["population_summaries"].set_index(["taxon", "sex"])
     for key in [("Sorex minutus", "f"), ("Sorex minutus", "m")]:
         assert out.loc[key, "variance"] == pytest.approx(4.0)
@@ -104,9 +107,7 @@ def test_confidence_bounds_that_name_their_level(tmp_path: Path) -> None:
         "Sorex minutus,m,body mass,mean,50,g,10\n"
         "Sorex minutus,m,body mass,lower 90% CI,48.9,g,10\n"  # not this source's 0.95
     )
-    root = project(tmp_path, table, LONG_POP)
-    frames, accounts, _ = build_tables(load_project(root))
-    assert all(a.balanced for a in accounts)
+    frames = built(project(tmp_path, table, LONG_POP))
     out = frames["population_summaries"].set_index("sex")
     assert out.loc["f", "sd_method"] == "from ci"
     assert out.loc["f", "sd"] == pytest.approx(1.999, rel=1e-3)
@@ -130,9 +131,7 @@ def test_sample_size_written_with_its_name(tmp_path: Path) -> None:
         "Sorex araneus,f,body mass,mean,9,g,a few\n"
         "Sorex araneus,f,body mass,se,1,g,a few\n"
     )
-    root = project(tmp_path, table, LONG_POP)
-    frames, accounts, _ = build_tables(load_project(root))
-    assert all(a.balanced for a in accounts)
+    frames = built(project(tmp_path, table, LONG_POP))
     out = frames["population_summaries"].set_index(["taxon", "sex"])
     assert out.loc[("Sorex minutus", "f"), "n"] == 9
     assert out.loc[("Sorex minutus", "f"), "sd"] == pytest.approx(3.0)

@@ -141,8 +141,9 @@ def build(
 
     Unchanged sources are reused from the last build; the package is swapped in only when it
     is complete and valid; what changed is written beside it as OUTPUT.changes.json and
-    OUTPUT.changes.txt (packages of at most 200,000 individual values, or with --changes). A second build of the
-    same output while one runs is refused. Long builds show rows read, rate and time left.
+    OUTPUT.changes.txt (packages of at most 200,000 individual values, or with --changes). A
+    second build of the same output while one runs is refused. Long builds show rows read,
+    rate and time left.
     """
     with ExitStack() as stack:
         stream = None
