@@ -38,7 +38,7 @@ from harmonize.ingest import (
 from harmonize.lookup_tables import unit_texts  # the same unit texts the values carry
 from harmonize.package import PackageInfo, ResourceWriter, schema_descriptor, write_package
 from harmonize.package_validate import ValidationResult, validate_package
-from harmonize.project import Mapping, Project
+from harmonize.project import Limits, Mapping, Project
 from harmonize.vocab import Vocabulary
 
 __all__ = ["BuildReport", "SourceAccount", "build_project", "build_tables", "changes_file_paths"]
@@ -107,14 +107,14 @@ def _account_fields(account: SourceAccount) -> dict:
     return fields
 
 
-def _source_checksum(mapping: Mapping) -> str:
+def _source_checksum(mapping: Mapping, limits: Limits) -> str:
     if not mapping.path.is_file():
         raise SourceNotFoundError(
             "source file not found",
             file=str(mapping.path),
             hint=f"path declared in {mapping.mapping_file.name}",
         )
-    files = sources.source_files(mapping)
+    files = sources.source_files(mapping, limits)
     if len(files) == 1:
         return sources.file_sha256(files[0])
     # a descriptor and the files it names: one digest over each file's name and digest
@@ -155,7 +155,7 @@ def _gather(
     for mapping in sorted(project.mappings, key=lambda m: m.source):
         check_declared_traits(mapping, vocabulary)
         replaced = (inputs or {}).get(mapping.source)
-        sha256 = replaced.sha256 if replaced else _source_checksum(mapping)
+        sha256 = replaced.sha256 if replaced else _source_checksum(mapping, project.limits)
         key = source_key(project, mapping, sha256, vocabulary.version) if cache else ""
         cached = cache.load(mapping.source, key) if cache and not full else None
         if replaced is not None:

@@ -375,14 +375,16 @@ def _spec_tables(
             )
 
 
-def source_files(mapping: Mapping) -> list[Path]:
+def source_files(mapping: Mapping, limits: Limits) -> list[Path]:
     """Every file a `dwca` or `datapackage` source reads (the build's checksum covers them
     all, so a changed data file is never taken for an unchanged source): the zip itself, or
     the meta.xml or datapackage.json and the data files it names, in that order."""
     if mapping.format == "datapackage":
         return [mapping.path, *_resource(mapping).paths]
-    with _ArchiveFiles(mapping, Limits()) as files:
-        return [mapping.path] if files.zip is not None else files.files()
+    if mapping.path.name.lower() != "meta.xml":  # a zipped archive is one file
+        return [mapping.path]
+    with _ArchiveFiles(mapping, limits) as files:
+        return files.files()
 
 
 def read_dwca(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:

@@ -310,11 +310,11 @@ READERS: dict[str, tuple[Callable[[Mapping], list[str]], Reader]] = {
 }
 
 
-def source_files(mapping: Mapping) -> list[Path]:
+def source_files(mapping: Mapping, limits: Limits) -> list[Path]:
     """Every file a source reads: its table, or (unpacked archives, Data Packages) the
     descriptor and the data files it names."""
     if mapping.format in ("dwca", "datapackage"):
-        return foreign.source_files(mapping)
+        return foreign.source_files(mapping, limits)
     return [mapping.path]
 
 

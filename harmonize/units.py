@@ -547,8 +547,10 @@ def same_unit(first: str, second: str) -> bool:
     not), e.g. a cell's unit and the one in its column's name. An unreadable one does not."""
     if first.strip() == second.strip():
         return True
-    try:
-        same = conversion(first, second)
-    except ConfigError:  # the second cannot serve as a target
-        return False
-    return same.ok and same.scale == 1.0 and same.offset == 0.0
+    for source, target in ((first, second), (second, first)):
+        try:
+            same = conversion(source, target)
+        except ConfigError:  # a target must be unambiguous ('C' is not): try the other way
+            continue
+        return same.ok and same.scale == 1.0 and same.offset == 0.0
+    return False

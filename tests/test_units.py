@@ -22,6 +22,7 @@ from harmonize.units import (
     is_temperature,
     normalise_unit_text,
     parse_unit,
+    same_unit,
 )
 
 # --------------------------------------------------------------------------- exact factors
@@ -378,3 +379,18 @@ def test_every_plain_alias_reads_to_its_declared_unit():
             continue
         declared = entry if isinstance(entry, str) else entry["unit"]
         assert parse_unit(str(spelling)) == registry.parse_units(declared), spelling
+
+
+@pytest.mark.parametrize(
+    ("first", "second", "same"),
+    [
+        ("g", "gram", True),  # the SI symbol and the name (SI Brochure, 9th ed., Table 2)
+        ("°C", "C", True),  # bare 'C' read by the other unit's dimension, both ways
+        ("C", "°C", True),
+        ("mm", "cm", False),  # 1 cm = 10 mm (NIST SP 811, App. B)
+        ("degC", "K", False),  # same size of degree, different zero (SI Brochure 2.3.1)
+        ("xyz", "g", False),  # unreadable: not the same
+    ],
+)
+def test_same_unit_compares_units_not_spellings(first, second, same):
+    assert same_unit(first, second) is same
