@@ -21,6 +21,10 @@ STATISTIC_ALIASES = {
     "ci_high": "ci_high", "ucl": "ci_high", "upper ci": "ci_high", "ci upper": "ci_high", "ci_upper": "ci_high",
     "ci high": "ci_high", "high ci": "ci_high", "ci hi": "ci_high", "upper confidence limit": "ci_high",
     "variance": "variance", "var": "variance", "s2": "variance", "s²": "variance", "sd2": "variance",
+    "varianz": "variance", "varianza": "variance",
+    "standardabweichung": "sd", "écart-type": "sd", "ecart-type": "sd", "desviación estándar": "sd",
+    "standardfehler": "se", "erreur standard": "se", "error estándar": "se",
+    "stichprobenumfang": "n", "anzahl": "n", "effectif": "n", "tamaño de muestra": "n",
     "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
 }  # fmt: skip
 

@@ -12,6 +12,8 @@ from harmonize.statistic_names import read_statistic
     ("text", "expected"),
     [
         ("Mean", ("mean", None)),
+        ("Varianz", ("variance", None)),  # German, as field sheets write it
+        ("écart-type", ("sd", None)),  # French
         (" s.e. ", ("se", None)),
         ("95% CI low", ("ci_low", 0.95)),
         ("lower 95 % CI", ("ci_low", 0.95)),
