@@ -252,7 +252,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         RejectReason.INVALID_STATISTIC,
         lambda at: [
             f"'{s}' is a bound of a {readings[c][1] * 100:g}% interval, but this source's ci_level "
-            f"is {mapping.ci_level:g}; set ci_level: {readings[c][1]:g} in the mapping"
+            f"is {mapping.ci_level:g}; set ci_level: {readings[c][1]:g} in the mapping (quick mode: "
+            f"--ci-level {readings[c][1]:g})"
             for c, s in zip(declared.codes[at], declared.texts[declared.codes[at]], strict=True)
         ],
     )

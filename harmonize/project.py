@@ -292,6 +292,7 @@ def single_file_project(
     temperature: TemperatureSpec | None = None,
     vocabulary: Path | None = None,
     output_format: str = "csv",
+    ci_level: float = 0.95,
 ) -> Project:
     """A one-source project for a table without a mapping file (the CLI's quick mode).
 
@@ -314,6 +315,8 @@ def single_file_project(
         raise ConfigError(f"layout '{layout}' is not one of {', '.join(LAYOUTS)}")
     if layout == "long" and columns is None:
         raise ConfigError("a long table needs at least the trait and value columns named")
+    if not 0.5 <= ci_level < 1:
+        raise ConfigError(f"the CI level must be between 0.5 and 1, got {ci_level}")
     stem = (
         "".join(ch if ch.isalnum() else "-" for ch in source_path.stem.lower()).strip("-")
         or "table"
@@ -332,6 +335,7 @@ def single_file_project(
         traits=tuple((traits or {}).values()),
         columns=columns,
         ignore=tuple(ignore),
+        ci_level=ci_level,
     )
     root = source_path.parent
     return Project(

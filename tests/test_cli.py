@@ -144,6 +144,29 @@ def test_cell_unit_other_than_the_declared_is_flagged(tmp_path: Path, capsys) ->
     assert "cell-unit-differs-from-declared" in values.loc[2, "flags"].split(";")
 
 
+def test_quick_mode_takes_the_confidence_level(tmp_path: Path, capsys) -> None:
+    # SD from a 90% CI with n = 10: sqrt(10) * (52.0 - 48.0) / (2 * t(0.95, 9)), t = 1.833
+    # (any t table; Cochrane Handbook 6.5.2.2): 3.1623 * 4 / 3.666 = 3.450
+    table = tmp_path / "means.csv"
+    table.write_text(
+        "species,trait,statistic,value,unit,n\n"
+        "Sorex minutus,body mass,mean,50,g,10\n"
+        "Sorex minutus,body mass,lower 90% CI,48.0,g,10\n"
+        "Sorex minutus,body mass,upper 90% CI,52.0,g,10\n",
+        encoding="utf-8",
+    )
+    base = ["quick", str(table), "--level", "population", "--taxon", "species",
+            "--trait-column", "trait", "--value-column", "value", "--unit-column", "unit",
+            "--statistic-column", "statistic", "--sample-size", "n", "-q"]  # fmt: skip
+    code, _, err = run([*base, "--ci-level", "0.9"], capsys)
+    assert code == 0, err
+    out = pd.read_csv(tmp_path / "means-harmonized" / "population_summaries.csv")
+    assert out["sd"].tolist() == pytest.approx([3.450], rel=1e-3)
+    assert out["ci_level"].tolist() == pytest.approx([0.9])
+    code, _, err = run([*base, "--ci-level", "90"], capsys)  # a percent is refused, not guessed
+    assert code == 3 and "between 0.5 and 1" in err and "Traceback" not in err
+
+
 def test_quick_mode_rejects_half_a_long_layout(tmp_path: Path, capsys) -> None:
     table = tmp_path / "t.csv"
     table.write_text("a,b\n1,2\n", encoding="utf-8")

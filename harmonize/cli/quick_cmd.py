@@ -71,6 +71,13 @@ from harmonize.project import (
 @click.option("--value-column", help="Long table: column holding values.")
 @click.option("--unit-column", help="Long table: column holding units.")
 @click.option("--statistic-column", help="Long table: column holding the statistic of each row.")
+@click.option(
+    "--ci-level",
+    type=float,
+    default=0.95,
+    show_default=True,
+    help="Confidence level of the table's CI bounds, as a fraction.",
+)
 @read_options
 @click.option(
     "--output",
@@ -88,7 +95,7 @@ from harmonize.project import (
 @click.option("--quiet", "-q", is_flag=True, help="Print only the summary.")
 def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, date, sample_size, temperature,
           units, traits, statistics, ignore, trait_column, value_column, unit_column, statistic_column,
-          delimiter, decimal, thousands, encoding, missing, output, output_format, quiet) -> None:  # fmt: skip
+          ci_level, delimiter, decimal, thousands, encoding, missing, output, output_format, quiet) -> None:  # fmt: skip
     """Harmonise TABLE (CSV, TSV or Parquet) in one go: name the columns, get a package."""
     context = {
         key: column
@@ -133,6 +140,7 @@ def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, dat
         read=make_read_options(delimiter, decimal, thousands, encoding, missing),
         temperature=spec,
         output_format=output_format,
+        ci_level=ci_level,
     )
     report = build_project(project, progress=progress_printer(quiet))
     for line in summary_lines(report):
