@@ -12,7 +12,9 @@ three ways, each in its own child process so peak memories do not mix (peak RSS 
 
 It prints the ratios the scale targets are stated in: build / floor (target <= 2), naive /
 build (target >= 50), peak memory (target < 1 GiB, and at most 1.5x the peak of the smallest
-size given). Not run by pytest.
+size given). With `--changes`, (d) the build is run once more with `--changes`, which compares
+the new package with the one (b) wrote (the change report of a large package, which a default
+build skips). Not run by pytest.
 """
 
 from __future__ import annotations
@@ -78,7 +80,7 @@ def _naive(table: Path, sample: int) -> None:
     print(json.dumps({"rows": len(frame), "seconds": seconds, "converted": converted}))
 
 
-def measure(rows: int, folder: Path, sample: int) -> dict:
+def measure(rows: int, folder: Path, sample: int, changes: bool = False) -> dict:
     project = folder / f"rows-{rows}"
     table = project / "data" / "long.parquet"
     if not table.is_file():
@@ -95,6 +97,11 @@ def measure(rows: int, folder: Path, sample: int) -> dict:
     build_s, build_mib, _ = _run(
         [sys.executable, "-m", "harmonize", "build", str(project), "--full", "-q"]
     )
+    changes_s = changes_mib = None
+    if changes:  # (d): the same build against the package (b) wrote, with the change report
+        changes_s, changes_mib, _ = _run(
+            [sys.executable, "-m", "harmonize", "build", str(project), "--full", "-q", "--changes"]
+        )
     _, naive_mib, out = _run([*me, "--naive", str(table), str(sample)])
     naive = json.loads(out.strip().splitlines()[-1])
     naive_s = naive["seconds"] / naive["rows"] * rows
@@ -108,6 +115,8 @@ def measure(rows: int, folder: Path, sample: int) -> dict:
         "naive_rows_per_s": naive["rows"] / naive["seconds"],
         "build_over_floor": build_s / floor_s,
         "naive_over_build": naive_s / build_s,
+        "build_with_changes_s": changes_s,
+        "build_with_changes_mib": changes_mib,
     }
 
 
@@ -116,6 +125,7 @@ def main() -> None:
     parser.add_argument("rows", type=int, nargs="*")
     parser.add_argument("--folder", type=Path, default=Path("bench-data"))
     parser.add_argument("--sample", type=int, default=20_000)
+    parser.add_argument("--changes", action="store_true", help="also time (d), see above")
     parser.add_argument("--floor", nargs=2, type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--naive", nargs=2, help=argparse.SUPPRESS)
     options = parser.parse_args()
@@ -125,7 +135,9 @@ def main() -> None:
     if options.naive:
         _naive(Path(options.naive[0]), int(options.naive[1]))
         return
-    results = [measure(rows, options.folder, options.sample) for rows in options.rows]
+    results = [
+        measure(rows, options.folder, options.sample, options.changes) for rows in options.rows
+    ]
     print(
         f"{'rows':>10} {'floor s':>8} {'build s':>8} {'build/floor':>11} "
         f"{'naive s (extrap.)':>17} {'naive/build':>11} {'floor MiB':>9} {'build MiB':>9}"
@@ -136,6 +148,12 @@ def main() -> None:
             f"{r['build_over_floor']:>11.2f} {r['naive_s_extrapolated']:>17.0f} "
             f"{r['naive_over_build']:>11.0f} {r['floor_mib']:>9.0f} {r['build_mib']:>9.0f}"
         )
+    for r in results:
+        if r["build_with_changes_s"] is not None:
+            print(
+                f"{r['rows']:>10} rows, build with --changes: {r['build_with_changes_s']:.2f} s, "
+                f"{r['build_with_changes_mib']:.0f} MiB"
+            )
     if len(results) > 1:
         growth = results[-1]["build_mib"] / results[0]["build_mib"]
         print(
