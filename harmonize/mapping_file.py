@@ -133,6 +133,16 @@ class Mapping:
         return None
 
 
+def checked_ci_level(ci_level: float, path: Path | None = None) -> float:
+    """A source's confidence level, a fraction from 0.5 to below 1 (a percent is refused)."""
+    if not 0.5 <= ci_level < 1:
+        raise ConfigError(
+            f"'ci_level' must be between 0.5 and 1, got {ci_level}",
+            file=str(path) if path else None,
+        )
+    return ci_level
+
+
 def load_mapping(path: Path, root: Path) -> Mapping:
     """Read and validate one mapping file."""
     path = Path(path)
@@ -280,9 +290,7 @@ def load_mapping(path: Path, root: Path) -> Mapping:
     ignore = data.get("ignore") or []
     if not isinstance(ignore, list):
         raise ConfigError("'ignore' must be a list of column names", file=str(path))
-    ci_level = as_number(data.get("ci_level", 0.95), path, "ci_level")
-    if not 0.5 <= ci_level < 1:
-        raise ConfigError(f"'ci_level' must be between 0.5 and 1, got {ci_level}", file=str(path))
+    ci_level = checked_ci_level(as_number(data.get("ci_level", 0.95), path, "ci_level"), path)
 
     return Mapping(
         source=source,

@@ -44,6 +44,7 @@ from harmonize.mapping_file import (  # noqa: F401 - the mapping's names, re-exp
     ReadOptions,
     TemperatureSpec,
     TraitColumn,
+    checked_ci_level,
     load_mapping,
 )
 
@@ -315,8 +316,7 @@ def single_file_project(
         raise ConfigError(f"layout '{layout}' is not one of {', '.join(LAYOUTS)}")
     if layout == "long" and columns is None:
         raise ConfigError("a long table needs at least the trait and value columns named")
-    if not 0.5 <= ci_level < 1:
-        raise ConfigError(f"the CI level must be between 0.5 and 1, got {ci_level}")
+    checked_ci_level(ci_level)
     stem = (
         "".join(ch if ch.isalnum() else "-" for ch in source_path.stem.lower()).strip("-")
         or "table"
