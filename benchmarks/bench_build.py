@@ -30,7 +30,7 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 
 
-def _run(arguments: list[str]) -> tuple[float, float, str]:
+def run_child(arguments: list[str]) -> tuple[float, float, str]:
     """Wall seconds, peak RSS in MiB and stdout of one child process."""
     start = time.perf_counter()
     child = subprocess.Popen(arguments, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
@@ -91,18 +91,20 @@ def measure(rows: int, folder: Path, sample: int, changes: bool = False) -> dict
         )
     me = [sys.executable, str(Path(__file__).resolve())]
     # the floor is short, so other load on the machine sways it most: best of three
-    floors = [_run([*me, "--floor", str(table), str(project / "floor.parquet")]) for _ in range(3)]
+    floors = [
+        run_child([*me, "--floor", str(table), str(project / "floor.parquet")]) for _ in range(3)
+    ]
     floor_s = min(f[0] for f in floors)
     floor_mib = max(f[1] for f in floors)
-    build_s, build_mib, _ = _run(
+    build_s, build_mib, _ = run_child(
         [sys.executable, "-m", "harmonize", "build", str(project), "--full", "-q"]
     )
     changes_s = changes_mib = None
     if changes:  # (d): the same build against the package (b) wrote, with the change report
-        changes_s, changes_mib, _ = _run(
+        changes_s, changes_mib, _ = run_child(
             [sys.executable, "-m", "harmonize", "build", str(project), "--full", "-q", "--changes"]
         )
-    _, naive_mib, out = _run([*me, "--naive", str(table), str(sample)])
+    _, naive_mib, out = run_child([*me, "--naive", str(table), str(sample)])
     naive = json.loads(out.strip().splitlines()[-1])
     naive_s = naive["seconds"] / naive["rows"] * rows
     return {

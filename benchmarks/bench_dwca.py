@@ -4,8 +4,8 @@ Run: `python benchmarks/bench_dwca.py [EXTENSION_ROWS] [--occurrences N] [--fold
 An archive is generated here with a fixed pattern: N occurrences in the core (three invented
 species, invented sites) and EXTENSION_ROWS MeasurementOrFact rows pointing at them, zipped.
 A child process then reads the whole source through `harmonize.foreign.read_dwca` (the reader a
-build uses, in batches of `limits.batch_rows`) and reports wall seconds and peak RSS
-(`os.wait4`), so the reading's memory is not mixed with this script's. The extension streams:
+build uses, in batches of `limits.batch_rows`) and reports the reading's seconds; its peak RSS
+comes from `bench_build.run_child`, so the reading's memory is not mixed with this script's. The extension streams:
 memory should follow the batch size and the core, not the extension. Not run by pytest.
 """
 
@@ -13,12 +13,12 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
-import subprocess
 import sys
 import time
 import zipfile
 from pathlib import Path
+
+from bench_build import run_child  # wall time and peak memory of a child process
 
 META = """<?xml version="1.0" encoding="UTF-8"?>
 <archive xmlns="http://rs.tdwg.org/dwc/text/">
@@ -102,15 +102,11 @@ def main() -> None:
     folder = options.folder / f"rows-{options.rows}-occ-{options.occurrences}"
     if not (folder / "archive.zip").is_file():
         write_archive(folder, options.rows, options.occurrences)
-    child = subprocess.Popen(
-        [sys.executable, str(Path(__file__).resolve()), "--read", str(folder)],
-        stdout=subprocess.PIPE,
+    _, peak_mib, out = run_child(
+        [sys.executable, str(Path(__file__).resolve()), "--read", str(folder)]
     )
-    _, status, usage = os.wait4(child.pid, 0)
-    if os.waitstatus_to_exitcode(status) != 0:
-        raise SystemExit("reading the archive failed")
-    result = json.loads(child.stdout.read().decode().strip().splitlines()[-1])
-    result["peak_mib"] = usage.ru_maxrss / 1024  # Linux reports KiB
+    result = json.loads(out.strip().splitlines()[-1])
+    result["peak_mib"] = peak_mib
     print(
         f"{result['rows']} extension rows over {options.occurrences} occurrences: "
         f"read in {result['seconds']:.2f} s, peak {result['peak_mib']:.0f} MiB"

@@ -234,28 +234,39 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     readings = [read_statistic(t) for t in declared.texts]
     known = np.array([code for code, _ in readings], dtype=object)
     given = np.array([isinstance(t, str) and t.strip() != "" for t in declared.texts], dtype=bool)
-    fate.reject(
-        (given & pd.isna(known))[declared.codes],
-        RejectReason.UNKNOWN_STATISTIC,
-        lambda at: [
-            f"unknown statistic '{s}'; use one of {', '.join(STATISTIC_CODES)}"
-            for s in declared.texts[declared.codes[at]]
-        ],
-    )
     # a bound naming its confidence level must agree with the mapping's `ci_level`
     other_level = np.array(
         [level is not None and abs(level - mapping.ci_level) > 1e-9 for _, level in readings],
         dtype=bool,
     )
+    # messages once per distinct spelling, taken by each rejected cell's code
+    unknown_message = np.array(
+        [
+            f"unknown statistic '{t}'; use one of {', '.join(STATISTIC_CODES)}"
+            for t in declared.texts
+        ],
+        dtype=object,
+    )
+    level_message = np.array(
+        [
+            f"'{t}' is a bound of a {level * 100:g}% interval, but this source's ci_level is "
+            f"{mapping.ci_level:g}; set ci_level: {level:g} in the mapping (quick mode: "
+            f"--ci-level {level:g})"
+            if wrong
+            else None
+            for t, (_, level), wrong in zip(declared.texts, readings, other_level, strict=True)
+        ],
+        dtype=object,
+    )
+    fate.reject(
+        (given & pd.isna(known))[declared.codes],
+        RejectReason.UNKNOWN_STATISTIC,
+        lambda at: unknown_message[declared.codes[at]],
+    )
     fate.reject(
         other_level[declared.codes],
         RejectReason.INVALID_STATISTIC,
-        lambda at: [
-            f"'{s}' is a bound of a {readings[c][1] * 100:g}% interval, but this source's ci_level "
-            f"is {mapping.ci_level:g}; set ci_level: {readings[c][1]:g} in the mapping (quick mode: "
-            f"--ci-level {readings[c][1]:g})"
-            for c, s in zip(declared.codes[at], declared.texts[declared.codes[at]], strict=True)
-        ],
+        lambda at: level_message[declared.codes[at]],
     )
     stat = _statistic_index(known)[declared.codes]
     stat = np.where(stat >= 0, stat, _statistic_index(name_table["statistic_hint"])[name_codes])
