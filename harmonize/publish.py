@@ -4,8 +4,11 @@ A scheduled build must never leave a half-written package where readers look, ev
 killed with `kill -9`, and two builds must never write the same output at once. This module
 owns the three mechanisms that promise that:
 
-* the **output lock** `.<output>.lock` beside the output, created with `O_CREAT|O_EXCL` and
-  holding the owner's pid, host, boot id, process start time and a random token. A lock whose
+* the **output lock** `.<output>.lock` beside the output, holding the owner's pid, host, boot
+  id, process start time and a random token. It is written to a draft file first and then
+  hard-linked into place (link(2) fails if the lock exists), so a lock is never seen half
+  written, even when its writer is killed; where the file system has no hard links it is
+  created with `O_CREAT|O_EXCL` and filled. A lock whose
   owner is gone (same host and: the pid does not exist, is a zombie, was reused by a process
   started later, or the machine has rebooted since) is stale and is taken over; a lock from
   another host is never judged, only reported;
@@ -47,9 +50,11 @@ from pathlib import Path
 from harmonize.errors import BuildLockedError
 
 PAUSE_BEFORE_SWAP_VARIABLE = "HARMONIZE_TEST_PAUSE_BEFORE_SWAP"
-# A lock file that exists but cannot be parsed is being written right now, unless it is older
-# than this: then its writer died between creating and filling it.
+# A lock file that exists but cannot be parsed is being written right now (only possible where
+# the file system has no hard links, or by a build of an older version), unless it is older than
+# this: then its writer died between creating and filling it.
 UNREADABLE_LOCK_GRACE_SECONDS = 10.0
+_UNREADABLE_LOCK_POLL_SECONDS = 0.1
 _RENAME_EXCHANGE = 2  # linux/fs.h
 _AT_FDCWD = -100  # linux/fcntl.h
 
@@ -140,15 +145,36 @@ def _read_owner(path: Path) -> LockOwner | None:
         return None
 
 
-def _try_create(path: Path, owner: LockOwner) -> bool:
-    try:
-        descriptor = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
-    except FileExistsError:
-        return False
+def _write_owner(descriptor: int, owner: LockOwner) -> None:
     with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
         handle.write(json.dumps(asdict(owner), sort_keys=True) + "\n")
         handle.flush()
         os.fsync(handle.fileno())
+
+
+def _draft_path(path: Path, owner: LockOwner) -> Path:
+    return path.with_name(f"{path.name}.draft-{owner.pid}-{owner.token}")
+
+
+def _try_create(path: Path, owner: LockOwner) -> bool:
+    """Create the lock holding `owner`, whole or not at all; False if a lock exists."""
+    draft = _draft_path(path, owner)
+    try:
+        _write_owner(os.open(draft, os.O_CREAT | os.O_TRUNC | os.O_WRONLY, 0o644), owner)
+        os.link(draft, path)
+        return True
+    except (FileExistsError, FileNotFoundError):
+        return False  # a lock exists (a build holding it may have cleaned our draft away)
+    except OSError as error:
+        if error.errno not in (errno.EPERM, errno.EOPNOTSUPP, errno.ENOTSUP, errno.EMLINK):
+            raise
+    finally:
+        draft.unlink(missing_ok=True)
+    try:  # no hard links here: create and fill (a kill in between leaves an unreadable lock)
+        descriptor = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+    except FileExistsError:
+        return False
+    _write_owner(descriptor, owner)
     return True
 
 
@@ -182,13 +208,8 @@ def acquire_lock(output: Path, *, attempts: int = 20) -> HeldLock:
             return HeldLock(path=path, owner=me, taken_over=taken_over)
         owner = _read_owner(path)
         if owner is None:
-            try:
-                age = time.time() - path.stat().st_mtime
-            except FileNotFoundError:
-                continue
-            if age < UNREADABLE_LOCK_GRACE_SECONDS:
-                time.sleep(0.1)  # being written by its owner right now
-                continue
+            if _unreadable_lock_is_young(path):
+                continue  # it vanished or became readable: try again
         elif not _owner_is_gone(owner):
             raise BuildLockedError(
                 f"another build is writing this output ({owner.describe()})",
@@ -205,6 +226,25 @@ def acquire_lock(output: Path, *, attempts: int = 20) -> HeldLock:
         file=str(output),
         hint=f"check for builds started in a loop; the lock file is {path}",
     )
+
+
+def _unreadable_lock_is_young(path: Path) -> bool:
+    """Wait while an unreadable lock is younger than the grace time; False once it is stale.
+
+    True as soon as the lock is gone or readable, so the caller looks again. Waiting is bounded
+    by the grace time, not by the caller's attempts, so a build started right after another was
+    killed mid-write waits for that lock to turn stale instead of giving up.
+    """
+    while True:
+        try:
+            age = time.time() - path.stat().st_mtime
+        except FileNotFoundError:
+            return True
+        if _read_owner(path) is not None:
+            return True
+        if age >= UNREADABLE_LOCK_GRACE_SECONDS:
+            return False
+        time.sleep(min(_UNREADABLE_LOCK_POLL_SECONDS, UNREADABLE_LOCK_GRACE_SECONDS - age))
 
 
 def release_lock(lock: HeldLock) -> None:
@@ -241,7 +281,8 @@ def clean_leftovers(output: Path) -> tuple[str, ...]:
         os.replace(previous[-1], output)
         removed.append(f"restored {previous[-1].name}")
         previous = previous[:-1]
-    patterns = (f".{output.name}.staging-*", f".{lock_path(output).name}.stale-*")
+    lock_name = lock_path(output).name
+    patterns = (f".{output.name}.staging-*", f"{lock_name}.stale-*", f"{lock_name}.draft-*")
     leftovers = previous + [p for pattern in patterns for p in output.parent.glob(pattern)]
     for leftover in sorted(leftovers):
         if leftover.is_dir():

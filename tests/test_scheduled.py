@@ -8,6 +8,7 @@ the documented hook HARMONIZE_TEST_PAUSE_BEFORE_SWAP holds it just before the sw
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import os
@@ -326,6 +327,61 @@ def test_an_empty_lock_file_left_by_a_crash_is_taken_over(demo: Path) -> None:
     os.utime(path, (old, old))
     build_project(load_project(demo))
     assert not path.exists()
+
+
+def test_a_writer_dying_while_writing_its_lock_leaves_no_lock(demo: Path, monkeypatch) -> None:
+    # a kill between creating the lock file and filling it used to leave an empty lock, and a
+    # build started right after gave up ("other builds keep taking it"); the lock is now linked
+    # into place only once written
+    output = package_of(demo)
+
+    def failing_fsync(descriptor: int) -> None:
+        raise OSError(errno.EIO, "simulated I/O error")
+
+    with monkeypatch.context() as patch:
+        patch.setattr(publish.os, "fsync", failing_fsync)
+        with pytest.raises(OSError):
+            publish.acquire_lock(output)
+    assert not publish.lock_path(output).exists()
+    assert leftovers(demo) == []  # the draft is gone too
+    assert build_project(load_project(demo)).lock_taken_over is None
+
+
+def test_a_young_unreadable_lock_is_waited_for_then_taken_over(demo: Path, monkeypatch) -> None:
+    # e.g. left by an older version killed mid-write: wait out the grace time, not give up
+    monkeypatch.setattr(publish, "UNREADABLE_LOCK_GRACE_SECONDS", 3.0)
+    path = publish.lock_path(package_of(demo))
+    path.write_text("", encoding="utf-8")
+    started = time.monotonic()
+    build_project(load_project(demo))
+    assert time.monotonic() - started >= 2.5  # it did wait for the lock to turn stale
+    assert not path.exists()
+
+
+def test_the_lock_works_where_the_file_system_has_no_hard_links(demo: Path, monkeypatch) -> None:
+    def no_links(source, target) -> None:
+        raise OSError(errno.EPERM, "Operation not permitted")
+
+    monkeypatch.setattr(publish.os, "link", no_links)
+    output = package_of(demo)
+    with publish.output_lock(output) as lock:
+        assert json.loads(lock.path.read_text(encoding="utf-8"))["token"] == lock.owner.token
+        with pytest.raises(BuildLockedError):
+            publish.acquire_lock(output)
+    assert not lock.path.exists()
+    assert leftovers(demo) == []
+
+
+@pytest.mark.parametrize("kind", ["draft", "stale"])
+def test_lock_files_left_by_a_kill_are_removed(demo: Path, kind: str) -> None:
+    # a kill between writing a draft and linking it, or between moving a stale lock aside and
+    # deleting it (the pattern for the latter was wrong before, so these stayed)
+    lock = publish.lock_path(package_of(demo))
+    left = lock.with_name(f"{lock.name}.{kind}-1-00ff")
+    left.write_text("{", encoding="utf-8")
+    report = build_project(load_project(demo))
+    assert left.name in report.leftovers_removed
+    assert leftovers(demo) == []
 
 
 # ------------------------------------------------------------------ atomic publishing
