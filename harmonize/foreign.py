@@ -31,11 +31,12 @@ the later stages; this module only reads.
 from __future__ import annotations
 
 import csv
+import io
 import json
 import os
 import xml.etree.ElementTree as ET
 import zipfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import IO, Any
@@ -86,10 +87,12 @@ def _text_tables(
     encoding: str,
     columns: dict[str, str],
     batch_rows: int,
+    reopen: Callable[[], IO[bytes]],
 ) -> Iterator[pa.Table]:
     """Read the columns {position name 'f<i>': output name} of a delimited file as text, in
     tables of at least `batch_rows` rows (the last may be shorter), streaming: memory follows
-    the batch, not the file. A file without rows gives one empty table."""
+    the batch, not the file. A file without rows gives one empty table. `reopen` opens the file
+    again, only on the error path, to name the row a parse error is in."""
     names = list(columns)
     pending: list[pa.RecordBatch] = []
     pending_rows = 0
@@ -130,12 +133,43 @@ def _text_tables(
             hint="check the field indexes in meta.xml against the file",
         ) from None
     except (pa.ArrowInvalid, UnicodeDecodeError) as error:
+        text = str(error).splitlines()[0]
+        if "Expected" in text and "columns" in text:
+            raise SourceReadError(
+                "row has a different number of fields than the first row",
+                file=file,
+                row=_first_ragged_row(reopen, delimiter, quote, skip_rows, encoding),
+                hint=f"check quoting and the declared delimiter {delimiter!r}",
+            ) from None
         raise SourceReadError(
-            f"cannot read as delimited text ({str(error).splitlines()[0]})",
+            f"cannot read as delimited text ({text})",
             file=file,
             hint="rows must have as many fields as the first one; check the declared delimiter "
             "and encoding",
         ) from None
+
+
+def _first_ragged_row(
+    reopen: Callable[[], IO[bytes]], delimiter: str, quote: str, skip_rows: int, encoding: str
+) -> int | None:
+    """Only on the error path: the first data row (1 = the first after the skipped header
+    lines) whose field count differs from the first data row's, or None if none is found."""
+    quoting = {"quotechar": quote} if quote else {"quoting": csv.QUOTE_NONE}
+    codec = "utf-8" if encoding == "utf8" else encoding
+    try:
+        with reopen() as raw, io.TextIOWrapper(raw, codec, errors="replace", newline="") as text:
+            rows = csv.reader(text, delimiter=delimiter, **quoting)
+            width = None
+            for number, fields in enumerate(rows, start=1 - skip_rows):
+                if number < 1 or not fields:
+                    continue
+                if width is None:
+                    width = len(fields)
+                elif len(fields) != width:
+                    return number
+    except (csv.Error, LookupError, OSError):
+        return None
+    return None
 
 
 def _renamed(table: pa.Table, columns: dict[str, str]) -> pa.Table:
@@ -363,6 +397,7 @@ def _spec_tables(
             encoding=_arrow_encoding(spec.encoding),
             columns={f"f{index}": name for index, name in by_index.items()},
             batch_rows=batch_rows,
+            reopen=lambda: files.open(spec.location),
         ):
             count = len(table)
             yield pa.table(
@@ -572,6 +607,7 @@ def read_datapackage(mapping: Mapping, header: list[str], limits: Limits) -> Ite
                     encoding=_arrow_encoding(resource.encoding),
                     columns={f"f{i}": name for i, name in enumerate(header)},
                     batch_rows=limits.batch_rows,
+                    reopen=lambda path=path: open(path, "rb"),
                 )
             )
         for frame in frames:

@@ -256,6 +256,18 @@ def test_archive_without_measurement_extension_is_refused(tmp_path):
         build_project(load_project(root), output=root / "out")
 
 
+def test_a_ragged_extension_row_is_named_by_file_and_row(tmp_path):
+    # the one-line error names file and row; a quoted tab in row 1 is not a field break
+    root = archive_project(tmp_path)
+    ragged = FACTS.replace("occ-2\tbody mass\tabc", "occ-2\tbody mass\tabc\textra")
+    members = {"meta.xml": meta_xml(), "occurrence.txt": CORE, "mof.txt": ragged}
+    write_zip(tmp_path / "data" / "lizards.zip", members)
+    with pytest.raises(SourceReadError) as caught:
+        build_project(load_project(root), output=root / "out")
+    assert str(caught.value).startswith(f"{tmp_path / 'data' / 'lizards.zip'}:mof.txt, row 4: ")
+    assert "different number of fields" in str(caught.value)
+
+
 # ---------------------------------------------------------------- Frictionless Data Package
 
 PACKAGE_MAPPING = """\
@@ -303,6 +315,17 @@ def test_foreign_data_package_csv_resource_is_a_source(tmp_path):
     account = report.accounts[0]
     assert account.cells_empty == 1  # '-' is the package's declared missing value
     assert len(report.tables["rejects"]) == 0
+
+
+def test_a_ragged_row_of_a_data_package_resource_is_named_by_file_and_row(tmp_path):
+    resource = {"name": "animals", "path": "animals.csv", "dialect": {"delimiter": ";"}}
+    csv_text = 'species;animal;mass;svl\n"Podarcis\nmuralis";a1;5.5;60\nZootoca;a2;4;48;9\n'
+    write_package(tmp_path, resource, {"animals.csv": csv_text})
+    root = project(tmp_path, PACKAGE_MAPPING.format(read="read: {resource: animals}\n"))
+    with pytest.raises(SourceReadError) as caught:
+        build_project(load_project(root), output=root / "out")
+    # row 2 starts on the fourth line: row 1 holds a quoted line break
+    assert str(caught.value).startswith(f"{tmp_path / 'data' / 'pkg' / 'animals.csv'}, row 2: ")
 
 
 def test_foreign_data_package_parquet_resource_is_a_source(tmp_path):
