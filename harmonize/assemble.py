@@ -324,9 +324,26 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         [has_declared, has_cell], [declared_coded, cell_coded], name_coded.map(hint_texts)
     )
     origin = np.select([has_declared, has_cell, has_hint], [0, 1, 2], 3)  # UNIT_ORIGINS
-    # a unit in the cell and another declared (the mapping's is used) or in the column's name
-    # (the cell's is used): flagged where they name different units
-    unit_differs = _units_differ(has_declared & has_cell, cell_coded, declared_coded)
+    # A unit in the cell that names another unit than the declared one (the mapping's unit or
+    # the row's unit column): two explicit statements disagree and either could be the typo, so
+    # the cell is rejected rather than converted with a guess. A cell unit other than the one in
+    # the column's name is used (the name is a default for the column) and flagged.
+    conflict = _units_differ(
+        has_declared & has_cell & numeric & (stat != _N) & fate.open, cell_coded, declared_coded
+    )
+    fate.reject(
+        conflict,
+        RejectReason.UNIT_CONFLICT,
+        lambda at: [
+            f"the cell says '{c}' but the declared unit is '{d}': correct the cell or the "
+            "declaration (the value is not converted with either)"
+            for c, d in zip(
+                cell_coded.texts[cell_coded.codes[at]],
+                declared_coded.texts[declared_coded.codes[at]],
+                strict=True,
+            )
+        ],
+    )
     cell_not_hint = _units_differ(
         has_cell & has_hint & ~has_declared, cell_coded, Coded(name_codes, hint_texts)
     )
@@ -430,7 +447,6 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         (outside, "outside-plausible-range"),
         _labelled("qualifier:", qualifier),
         conversion_flags,
-        (unit_differs, "cell-unit-differs-from-declared"),
         (cell_not_hint, "cell-unit-differs-from-name"),
         (origin == 2, "unit-from-name"),
         (assumed_mean, "statistic-assumed-mean"),

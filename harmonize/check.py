@@ -33,6 +33,7 @@ class FindingKind(StrEnum):
     MISSING_UNIT = "missing-unit"
     UNPARSABLE_UNIT = "unparsable-unit"
     DIMENSION_MISMATCH = "dimension-mismatch"
+    UNIT_CONFLICT = "unit-conflict"
     MIXED_UNITS = "mixed-units"
 
 
@@ -42,6 +43,7 @@ SEVERITY = {
     FindingKind.MISSING_UNIT: "error",
     FindingKind.UNPARSABLE_UNIT: "error",
     FindingKind.DIMENSION_MISMATCH: "error",
+    FindingKind.UNIT_CONFLICT: "error",  # the source contradicts itself
     FindingKind.MIXED_UNITS: "note",  # legitimate when declared; worth a look, not an alarm
 }
 

@@ -46,6 +46,7 @@ _UNIT_REASONS = {
     RejectReason.UNKNOWN_UNIT: FindingKind.UNPARSABLE_UNIT,
     RejectReason.AMBIGUOUS_UNIT: FindingKind.UNPARSABLE_UNIT,
     RejectReason.DIMENSION_MISMATCH: FindingKind.DIMENSION_MISMATCH,
+    RejectReason.UNIT_CONFLICT: FindingKind.UNIT_CONFLICT,
 }
 _READERS = {".csv": pd.read_csv, ".parquet": pd.read_parquet}
 

@@ -98,6 +98,7 @@ class RejectReason(StrEnum):
     UNKNOWN_UNIT = "unknown-unit"
     AMBIGUOUS_UNIT = "ambiguous-unit"
     DIMENSION_MISMATCH = "dimension-mismatch"
+    UNIT_CONFLICT = "unit-conflict"
     LEVEL_NOT_ALLOWED = "level-not-allowed"
     MISSING_TAXON = "missing-taxon"
     ORPHAN_STATISTIC = "orphan-statistic"

@@ -29,7 +29,7 @@ from harmonize.check import (
 from harmonize.check_sources import TableSpec, check_package, check_table
 from harmonize.cli.main import cli
 from harmonize.errors import UnsafePathError
-from harmonize.project import single_file_project
+from harmonize.project import LongColumns, single_file_project
 from harmonize.vocab import load_vocabulary
 
 # Exact conversion factors, NIST SP 811 (2008), Appendix B.8 / B.9:
@@ -279,13 +279,32 @@ def test_built_package_with_a_planted_source(tmp_path: Path) -> None:
     table.to_csv(path, index=False)
     project = single_file_project(
         path, layout="long", output=tmp_path / "pkg", context={"taxon": "species"},
-        columns=__import__("harmonize.project", fromlist=["LongColumns"]).LongColumns(
-            "trait", "value", "unit", None, None),
+        columns=LongColumns("trait", "value", "unit", None, None),
     )  # fmt: skip
     build_project(project)
     result = check_package(tmp_path / "pkg", group_by="taxon")
     assert _suspected(result) == {}  # every taxon holds the planted source: nothing stands out
     assert dict(result.accounting.lines)["individual values read"] == len(table)
+
+
+def test_built_package_reports_the_units_the_build_rejected(tmp_path: Path) -> None:
+    # a mass in mL (a volume) and a cell '4100 mg' in a row whose unit column says g
+    path = tmp_path / "long.csv"
+    path.write_text(
+        "species,trait,value,unit\n"
+        "Sorex minutus,body mass,4.1,g\n"
+        "Sorex minutus,body mass,4.0,mL\n"
+        "Sorex minutus,body mass,4100 mg,g\n",
+        encoding="utf-8",
+    )
+    project = single_file_project(
+        path, layout="long", output=tmp_path / "pkg", context={"taxon": "species"},
+        columns=LongColumns("trait", "value", "unit", None, None),
+    )  # fmt: skip
+    build_project(project)
+    result = check_package(tmp_path / "pkg")
+    found = {(f.kind, f.severity, f.values) for f in result.findings}
+    assert found == {("dimension-mismatch", "error", 1), ("unit-conflict", "error", 1)}
 
 
 def test_hostile_package_descriptor_is_refused(tmp_path: Path) -> None:

@@ -124,9 +124,10 @@ def test_cell_unit_other_than_the_headers_is_used_and_flagged(tmp_path: Path, ca
     assert not any("cell-unit-differs" in str(f) for f in mass["flags"])
 
 
-def test_cell_unit_other_than_the_declared_is_flagged(tmp_path: Path, capsys) -> None:
-    # The declared unit wins over a unit in the cell and the value says so; 'gram' is the
-    # declared 'g' spelled out, so it is not flagged.
+def test_cell_unit_other_than_the_declared_is_rejected(tmp_path: Path, capsys) -> None:
+    # Two explicit units disagree ('4100 mg' in a column declared g): either could be the typo,
+    # and converting with the declared one would put a value 1000x off into the output, so the
+    # cell goes to rejects. 'gram' is the declared 'g' spelled out: used, not rejected.
     table = tmp_path / "masses.csv"
     table.write_text(
         "Species;mass\nPodarcis muralis;4,1 gram\nPodarcis muralis;4100 mg\n", encoding="utf-8"
@@ -137,11 +138,37 @@ def test_cell_unit_other_than_the_declared_is_flagged(tmp_path: Path, capsys) ->
         capsys,
     )  # fmt: skip
     assert code == 0, err
-    values = pd.read_csv(tmp_path / "masses-harmonized" / "individual_values.csv")
-    values = values.set_index("source_row")
-    assert values["value"].tolist() == pytest.approx([4.1, 4100.0])  # the mapping's g
-    assert "cell-unit-differs-from-declared" not in str(values.loc[1, "flags"])
-    assert "cell-unit-differs-from-declared" in values.loc[2, "flags"].split(";")
+    folder = tmp_path / "masses-harmonized"
+    values = pd.read_csv(folder / "individual_values.csv")
+    assert values["source_row"].tolist() == [1]
+    assert values["value"].tolist() == pytest.approx([4.1])
+    assert "cell-unit" not in str(values.loc[0, "flags"])
+    rejects = pd.read_csv(folder / "rejects.csv")
+    assert rejects[["source_row", "reason"]].values.tolist() == [[2, "unit-conflict"]]
+    assert "'mg'" in rejects.loc[0, "message"] and "'g'" in rejects.loc[0, "message"]
+
+
+def test_cell_unit_other_than_the_unit_column_is_rejected(tmp_path: Path, capsys) -> None:
+    # long table: the row's unit column says mm, the cell says cm (8.5 cm = 85 mm or 8.5 mm?)
+    table = tmp_path / "long.csv"
+    table.write_text(
+        "species;trait;value;unit\n"
+        "Podarcis muralis;SVL;8,5 cm;mm\n"
+        "Podarcis muralis;SVL;61 millimetre;mm\n"
+        "Podarcis muralis;SVL;62;mm\n",
+        encoding="utf-8",
+    )
+    code, _, err = run(
+        ["quick", str(table), "--taxon", "species", "--delimiter", ";", "--decimal", ",",
+         "--trait-column", "trait", "--value-column", "value", "--unit-column", "unit", "-q"],
+        capsys,
+    )  # fmt: skip
+    assert code == 0, err
+    folder = tmp_path / "long-harmonized"
+    values = pd.read_csv(folder / "individual_values.csv")
+    assert values["value"].tolist() == pytest.approx([61.0, 62.0])  # NIST SP 811: mm as is
+    rejects = pd.read_csv(folder / "rejects.csv")
+    assert rejects[["source_row", "reason"]].values.tolist() == [[1, "unit-conflict"]]
 
 
 def test_quick_mode_takes_the_confidence_level(tmp_path: Path, capsys) -> None:

@@ -84,6 +84,13 @@ CASES = [
         "mass",
     ),
     Case(
+        RejectReason.UNIT_CONFLICT,
+        "species,mass\nSorex minutus,4.1\nSorex minutus,4100 mg\n",
+        IND + "traits: {mass: {trait: body_mass_wet, unit: g}}\n",
+        2,
+        "mass",
+    ),
+    Case(
         RejectReason.LEVEL_NOT_ALLOWED,
         "species,mode,mass_g\nSorex minutus,endotherm,4\n",
         IND + "traits: {mode: {trait: thermoregulatory_mode}}\n",
