@@ -23,6 +23,21 @@ def run(argv: list[str], capsys) -> tuple[int, str, str]:
     return code, captured.out, captured.err
 
 
+SEMICOLON_COMMA = ["--delimiter", ";", "--decimal", ","]
+
+
+def quick(table: Path, text: str, options: list[str], capsys) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Write `text` to `table`, run `harmonize quick` on it; (individual values, rejects)."""
+    table.write_text(text, encoding="utf-8")
+    code, _, err = run(["quick", str(table), *options, "-q"], capsys)
+    assert code == 0, err
+    folder = table.with_name(f"{table.stem}-harmonized")
+    return (
+        pd.read_csv(folder / "individual_values.csv"),
+        pd.read_csv(folder / "rejects.csv"),
+    )
+
+
 @pytest.fixture
 def demo(tmp_path: Path) -> Path:
     shutil.copy(REPO / "harmonize.yaml", tmp_path / "harmonize.yaml")
@@ -101,19 +116,12 @@ def test_quick_mode_on_a_messy_table(tmp_path: Path, capsys) -> None:
 def test_cell_unit_other_than_the_headers_is_used_and_flagged(tmp_path: Path, capsys) -> None:
     # 1 cm = 10 mm (NIST SP 811, App. B). '45 mm' under 'SVL (cm)': the cell's unit is used and
     # flagged; '4,1 gram' under 'Body mass [g]' is the same unit and is not.
-    table = tmp_path / "sheet.csv"
-    table.write_text(
-        "Species;SVL (cm);Body mass [g]\n"
-        "Podarcis muralis;5,52;4,1 gram\n"
-        "Podarcis muralis;45 mm;3,9\n",
-        encoding="utf-8",
-    )
-    code, _, err = run(
-        ["quick", str(table), "--taxon", "Species", "--delimiter", ";", "--decimal", ",", "-q"],
+    values, _ = quick(
+        tmp_path / "sheet.csv",
+        "Species;SVL (cm);Body mass [g]\nPodarcis muralis;5,52;4,1 gram\nPodarcis muralis;45 mm;3,9\n",
+        ["--taxon", "Species", *SEMICOLON_COMMA],
         capsys,
     )
-    assert code == 0, err
-    values = pd.read_csv(tmp_path / "sheet-harmonized" / "individual_values.csv")
     values = values.set_index(["source_row", "trait_id"])
     svl = values.xs("snout_vent_length", level="trait_id")
     assert svl["value"].tolist() == pytest.approx([55.2, 45.0])
@@ -128,46 +136,32 @@ def test_cell_unit_other_than_the_declared_is_rejected(tmp_path: Path, capsys) -
     # Two explicit units disagree ('4100 mg' in a column declared g): either could be the typo,
     # and converting with the declared one would put a value 1000x off into the output, so the
     # cell goes to rejects. 'gram' is the declared 'g' spelled out: used, not rejected.
-    table = tmp_path / "masses.csv"
-    table.write_text(
-        "Species;mass\nPodarcis muralis;4,1 gram\nPodarcis muralis;4100 mg\n", encoding="utf-8"
-    )
-    code, _, err = run(
-        ["quick", str(table), "--taxon", "Species", "--delimiter", ";", "--decimal", ",",
-         "--unit", "mass=g", "-q"],
+    values, rejects = quick(
+        tmp_path / "masses.csv",
+        "Species;mass\nPodarcis muralis;4,1 gram\nPodarcis muralis;4100 mg\n",
+        ["--taxon", "Species", *SEMICOLON_COMMA, "--unit", "mass=g"],
         capsys,
-    )  # fmt: skip
-    assert code == 0, err
-    folder = tmp_path / "masses-harmonized"
-    values = pd.read_csv(folder / "individual_values.csv")
+    )
     assert values["source_row"].tolist() == [1]
     assert values["value"].tolist() == pytest.approx([4.1])
     assert "cell-unit" not in str(values.loc[0, "flags"])
-    rejects = pd.read_csv(folder / "rejects.csv")
     assert rejects[["source_row", "reason"]].values.tolist() == [[2, "unit-conflict"]]
     assert "'mg'" in rejects.loc[0, "message"] and "'g'" in rejects.loc[0, "message"]
 
 
 def test_cell_unit_other_than_the_unit_column_is_rejected(tmp_path: Path, capsys) -> None:
     # long table: the row's unit column says mm, the cell says cm (8.5 cm = 85 mm or 8.5 mm?)
-    table = tmp_path / "long.csv"
-    table.write_text(
+    values, rejects = quick(
+        tmp_path / "long.csv",
         "species;trait;value;unit\n"
         "Podarcis muralis;SVL;8,5 cm;mm\n"
         "Podarcis muralis;SVL;61 millimetre;mm\n"
         "Podarcis muralis;SVL;62;mm\n",
-        encoding="utf-8",
-    )
-    code, _, err = run(
-        ["quick", str(table), "--taxon", "species", "--delimiter", ";", "--decimal", ",",
-         "--trait-column", "trait", "--value-column", "value", "--unit-column", "unit", "-q"],
+        ["--taxon", "species", *SEMICOLON_COMMA,
+         "--trait-column", "trait", "--value-column", "value", "--unit-column", "unit"],
         capsys,
     )  # fmt: skip
-    assert code == 0, err
-    folder = tmp_path / "long-harmonized"
-    values = pd.read_csv(folder / "individual_values.csv")
     assert values["value"].tolist() == pytest.approx([61.0, 62.0])  # NIST SP 811: mm as is
-    rejects = pd.read_csv(folder / "rejects.csv")
     assert rejects[["source_row", "reason"]].values.tolist() == [[1, "unit-conflict"]]
 
 
