@@ -222,11 +222,10 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # 4. taxon
     if "taxon" in mapping.context:
         no_taxon = cells["taxon_verbatim"].isna().to_numpy()
-        fate.reject(
-            no_taxon,
-            RejectReason.MISSING_TAXON,
-            f"no taxon name in column '{mapping.context['taxon']}'",
-        )
+        message = f"no taxon name in column '{mapping.context['taxon']}'"
+        if mapping.format == "dwca":  # the taxon is the core's: an extension row may lack one
+            message += " (or the row's coreid is not an id of the archive's core)"
+        fate.reject(no_taxon, RejectReason.MISSING_TAXON, message)
 
     # 5. statistic, as an index into STATISTIC_CODES (-1: none given): declared spellings are
     # worked out once each, hints once per name

@@ -119,6 +119,7 @@ def check_archive_build(root: Path) -> None:
     rejects = report.tables["rejects"].set_index("source_row")
     assert rejects.loc[4, "reason"] == "not-a-number"
     assert rejects.loc[5, "reason"] == "missing-taxon"  # extension row without a core row
+    assert "coreid is not an id of the archive's core" in rejects.loc[5, "message"]
     assert len(rejects) == 2
     assert report.balanced
 
