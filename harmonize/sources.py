@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import codecs
 import csv
+import dataclasses
 import difflib
 import hashlib
 from collections.abc import Callable, Iterator
@@ -203,14 +204,16 @@ def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iter
         )
         pending: list[pa.RecordBatch] = []
         pending_rows = done_rows = 0
-        for batch in reader:
+        for batch in reader:  # blocks of about 4 MiB, cut into frames of batch_rows rows
             pending.append(batch)
             pending_rows += batch.num_rows
-            if pending_rows >= limits.batch_rows:
-                yield pa.Table.from_batches(pending).to_pandas()
-                done_rows += pending_rows
-                pending, pending_rows = [], 0
-        if pending:
+            while pending_rows >= limits.batch_rows:
+                table = pa.Table.from_batches(pending)
+                yield table.slice(0, limits.batch_rows).to_pandas()
+                rest = table.slice(limits.batch_rows)
+                pending, pending_rows = rest.to_batches(), rest.num_rows
+                done_rows += limits.batch_rows
+        if pending_rows:
             last = pa.Table.from_batches(pending).to_pandas()
             _refuse_unclosed_quote(mapping, last, done_rows + len(last))
             yield last
@@ -420,6 +423,7 @@ def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellB
     check_declared_columns(mapping, header)
     _refuse_long_names(mapping, header, limits)
     _, reader = READERS[mapping.format]
+    limits = reading_limits(mapping, header, limits)
     first_row = 1
     measure = _PROGRESS_MEASURES.get(mapping.format)
     total = measure[0](mapping, size) if measure else None
@@ -431,6 +435,20 @@ def iter_cells(mapping: Mapping, limits: Limits | None = None) -> Iterator[CellB
             fraction = min(1.0, done / total)
         yield cells_of_frame(mapping, frame, header, first_row, limits, fraction)
         first_row += len(frame)
+
+
+# A wide batch holds at least this many rows, however many trait columns a row has.
+MIN_BATCH_ROWS = 64
+
+
+def reading_limits(mapping: Mapping, header: list[str], limits: Limits) -> Limits:
+    """`limits` with the rows per batch cut so a wide table's batch holds about as many cells
+    as `batch_rows` rows of a long table: every trait column of a row is one cell, so 262,144
+    rows of 100 trait columns would be 26 million cells at once (gigabytes) instead of a
+    quarter million."""
+    per_row = len(trait_columns(mapping, header)) if mapping.layout == "wide" else 1
+    rows = max(MIN_BATCH_ROWS, limits.batch_rows // max(1, per_row))
+    return dataclasses.replace(limits, batch_rows=min(limits.batch_rows, rows))
 
 
 def _text_bytes(frame: pd.DataFrame) -> float:

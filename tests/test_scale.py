@@ -23,7 +23,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from harmonize import build, tables
+from harmonize import build, sources, tables
 from harmonize.arrow_validate import (
     ResourceCheck,
     hex_key_numbers,
@@ -40,7 +40,7 @@ from harmonize.package import (
     write_package,
 )
 from harmonize.package_validate import validate_package
-from harmonize.project import load_project
+from harmonize.project import Limits, load_project, single_file_project
 
 REPO = Path(__file__).resolve().parents[1]
 ROWS = 60_000
@@ -159,6 +159,26 @@ def test_wide_sources_read_in_tiny_batches_give_the_same_package(tmp_path):
     write_package(frames, tmp_path / "memory", streamed_info(report.output), fmt="csv")
     assert _files(report.output) == _files(tmp_path / "memory")
     assert report.validation.valid and report.frictionless_checked
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+@pytest.mark.parametrize(("trait_columns", "rows_per_batch"), [(10, 100), (1, 1000), (40, 64)])
+def test_a_wide_batch_holds_about_batch_rows_cells(
+    tmp_path, suffix, trait_columns, rows_per_batch
+):
+    # every trait column of a row is a cell: 262,144 rows of 100 trait columns at once took
+    # 3 GiB at peak; the rows per batch are cut (to at least MIN_BATCH_ROWS = 64)
+    rows = 2530
+    table = {"species": ["Sorex minutus"] * rows}
+    table |= {f"body mass {i} (g)": ["4.1"] * rows for i in range(trait_columns)}
+    path = tmp_path / f"wide{suffix}"
+    frame = pd.DataFrame(table)
+    frame.to_csv(path, index=False) if suffix == ".csv" else frame.to_parquet(path)
+    mapping = single_file_project(path, context={"taxon": "species"}).mappings[0]
+    batches = list(sources.iter_cells(mapping, Limits(batch_rows=1000)))
+    sizes = [b.rows for b in batches]
+    assert sizes == [rows_per_batch] * (rows // rows_per_batch) + [rows % rows_per_batch]
+    assert sum(len(b.cells) for b in batches) == rows * trait_columns
 
 
 # --- planted problems ------------------------------------------------------------------------
