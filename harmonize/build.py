@@ -43,10 +43,12 @@ from harmonize.vocab import Vocabulary
 
 __all__ = ["BuildReport", "SourceAccount", "build_project", "build_tables", "changes_file_paths"]
 
-# A package with at most this many individual values is "small": its values stay in memory
-# for the report and the cache, frictionless validates it row by row and the change report
-# compares it with the previous build. Larger packages are streamed to disk and checked
+# A package of at most this many rows (individual values, summaries, rejects and the small
+# tables) is "small": frictionless validates it row by row and the change report compares it
+# with the previous build; a source of at most this many individual values keeps them in
+# memory for the report and the cache. Larger packages are streamed to disk and checked
 # column-wise with pyarrow only (frictionless reads about 35-60k rows/s: ECOSYSTEM-NOTES §6).
+# Rejects count: a source of millions of rows that are all rejected is a large package.
 SMALL_PACKAGE_ROWS = 200_000
 
 
@@ -356,7 +358,8 @@ def build_project(
                 written={tables.INDIVIDUAL_VALUES.name: values_file},
             )
             flushing = publish.flush_in_background(staging)
-            small = values_file.rows <= SMALL_PACKAGE_ROWS
+            package_rows = values_file.rows + sum(map(len, gathered.frames.values()))
+            small = package_rows <= SMALL_PACKAGE_ROWS
             run_frictionless = small if frictionless is None else frictionless
             validation = _validate(staging, run_frictionless, streamed)
             if progress:
@@ -380,7 +383,7 @@ def build_project(
                     large=not small,
                 )
             elif progress:
-                progress("changes-skipped", {"rows": values_file.rows, "large": not small})
+                progress("changes-skipped", {"rows": package_rows, "large": not small})
             publish.swap_into_place(staging, output, flushing)
         finally:
             if writer is not None:

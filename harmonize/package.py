@@ -150,7 +150,10 @@ def write_package(
             if resource.name == data_model.TRAITS.name:
                 roles = _trait_roles(frame)
             writer = ResourceWriter(resource, folder, fmt)
-            writer.write(frame)
+            # in slices: a whole table of millions of rejects would be copied to Arrow or CSV
+            # text at once, and one text column over 2 GiB cannot be an Arrow string array
+            for start in range(0, len(frame), WRITE_SLICE_ROWS):
+                writer.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
             done = writer.close()
         resources.append(_resource_descriptor(resource, done, units.get(resource.name, {})))
 
@@ -301,6 +304,9 @@ PARQUET_ROW_GROUP_ROWS = 131_072
 # the time, and with zstd level 1 the file came out about a fifth smaller than with Arrow's
 # default limit at level 3 (benchmarks/, invented data; figures in the README).
 _DICTIONARY_PAGE_BYTES = 65_536
+
+# Rows of an in-memory table handed to its writer at a time (the bytes do not depend on it).
+WRITE_SLICE_ROWS = PARQUET_ROW_GROUP_ROWS
 
 
 def _csv_text(frame: pd.DataFrame, resource: data_model.Resource, header: bool) -> bytes:

@@ -23,7 +23,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from harmonize import build, sources, tables
+from harmonize import build, package, sources, tables
 from harmonize.arrow_validate import (
     ResourceCheck,
     hex_key_numbers,
@@ -179,6 +179,20 @@ def test_a_wide_batch_holds_about_batch_rows_cells(
     sizes = [b.rows for b in batches]
     assert sizes == [rows_per_batch] * (rows // rows_per_batch) + [rows % rows_per_batch]
     assert sum(len(b.cells) for b in batches) == rows * trait_columns
+
+
+def test_rejects_count_towards_a_large_package(tmp_path, monkeypatch):
+    # a source of millions of cells that are all rejected is no small package: frictionless
+    # row by row and the in-memory change report over its rejects would take minutes
+    monkeypatch.setattr(build, "SMALL_PACKAGE_ROWS", 50)
+    rows = ["Sorex minutus,4.1"] * 10 + ["Sorex minutus,broken"] * 60
+    path = tmp_path / "mostly-bad.csv"
+    path.write_text("species,mass_g\n" + "\n".join(rows) + "\n", encoding="utf-8")
+    project = single_file_project(path, output=tmp_path / "out", context={"taxon": "species"})
+    report = build_project(project)
+    assert report.individual_values == 10 and report.rejects_by_reason == {"not-a-number": 60}
+    assert not report.frictionless_checked and report.changes_skipped
+    assert report.validation.valid  # still checked column-wise
 
 
 # --- planted problems ------------------------------------------------------------------------
@@ -360,6 +374,30 @@ def test_parquet_bytes_do_not_depend_on_how_values_arrive(tmp_path):
         written[piece] = (tmp_path / "individual_values.parquet").read_bytes()
     assert written[rows] == written[7_001]
     assert pq.read_table(tmp_path / "individual_values.parquet")["record_id"].to_pylist() == ids
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_in_memory_tables_are_written_in_slices(demo_frames, tmp_path, monkeypatch, fmt):
+    # 20 million rejects written whole failed ("input array too large": one text column over
+    # 2 GiB) after peaking at 15 GiB; a table goes to its writer WRITE_SLICE_ROWS at a time,
+    # and the bytes are those of one whole write
+    info = PackageInfo(
+        name="sliced", title="t", description="d", version="0.0.0", created=None,
+        vocabulary_version="1", tool_version="0",
+    )  # fmt: skip
+    write_package(demo_frames, tmp_path / "whole", info, fmt=fmt)
+    sizes = []
+    original = ResourceWriter.write
+
+    def recording(self, frame):
+        sizes.append(len(frame))
+        return original(self, frame)
+
+    monkeypatch.setattr(package, "WRITE_SLICE_ROWS", 10)
+    monkeypatch.setattr(ResourceWriter, "write", recording)
+    write_package(demo_frames, tmp_path / "sliced", info, fmt=fmt)
+    assert sizes and max(sizes) == 10 and sum(sizes) == sum(map(len, demo_frames.values()))
+    assert _files(tmp_path / "whole") == _files(tmp_path / "sliced")
 
 
 def test_parquet_dictionaries_stay_small(tmp_path):

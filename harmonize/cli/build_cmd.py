@@ -112,13 +112,15 @@ def _counts(report: BuildReport) -> dict:
     "--frictionless/--no-frictionless",
     default=None,
     help="Also validate the package row by row with the frictionless library (default: only "
-    "packages of at most 200,000 individual values; every build is checked column-wise).",
+    "packages of at most 200,000 rows: values, summaries and rejects; every build is checked "
+    "column-wise).",
 )
 @click.option(
     "--changes/--no-changes",
     default=None,
     help="Compare the package with the previous one and write OUTPUT.changes.json and .txt "
-    "(default: only packages of at most 200,000 individual values; larger ones are compared "
+    "(default: only packages of at most 200,000 rows: values, summaries and rejects; larger "
+    "ones are compared "
     "column by column from the files).",
 )
 @click.option(
@@ -141,7 +143,7 @@ def build(
 
     Unchanged sources are reused from the last build; the package is swapped in only when it
     is complete and valid; what changed is written beside it as OUTPUT.changes.json and
-    OUTPUT.changes.txt (packages of at most 200,000 individual values, or with --changes). A
+    OUTPUT.changes.txt (packages of at most 200,000 rows, or with --changes). A
     second build of the same output while one runs is refused. Long builds show rows read,
     rate and time left.
     """

@@ -173,7 +173,7 @@ def progress_printer(quiet: bool):
             click.echo("writing and validating the package ...", err=True)
         elif event == "changes-skipped" and detail["large"]:
             click.echo(
-                f"change report skipped: {detail['rows']:,} individual values is a large package "
+                f"change report skipped: {detail['rows']:,} rows is a large package "
                 "(--changes makes it)",
                 err=True,
             )
