@@ -326,9 +326,22 @@ def _arrow_table(frame: pd.DataFrame, resource: data_model.Resource, schema: pa.
         if column.type == "date":
             strings = pa.array(series, type=pa.string(), from_pandas=True)
             arrays.append(_parse_dates(strings, resource, column.name))
+        elif column.type == "string":
+            arrays.append(_small_text(pa.array(series, from_pandas=True)))
         else:
             arrays.append(pa.array(series, type=_ARROW_TYPES[column.type], from_pandas=True))
     return pa.Table.from_arrays(arrays, schema=schema)
+
+
+def _small_text(array: pa.Array) -> pa.Array:
+    """Text as Arrow `string`. pandas keeps text as `large_string`, and a slice of a column of
+    more than 2 GiB of text keeps offsets beyond 2**31 into the whole column's buffer, which a
+    cast refuses ("input array too large"): the slice's text is copied first."""
+    if isinstance(array, pa.ChunkedArray):
+        array = array.combine_chunks()
+    if pa.types.is_large_string(array.type):
+        array = pa.concat_arrays([array])  # a slice's own text, offsets from 0
+    return array if array.type == pa.string() else array.cast(pa.string())
 
 
 def _parse_dates(strings: pa.Array, resource: data_model.Resource, name: str) -> pa.Array:

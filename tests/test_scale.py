@@ -163,9 +163,7 @@ def test_wide_sources_read_in_tiny_batches_give_the_same_package(tmp_path):
 
 @pytest.mark.parametrize("suffix", [".csv", ".parquet"])
 @pytest.mark.parametrize(("trait_columns", "rows_per_batch"), [(10, 100), (1, 1000), (40, 64)])
-def test_a_wide_batch_holds_about_batch_rows_cells(
-    tmp_path, suffix, trait_columns, rows_per_batch
-):
+def test_a_wide_batch_holds_about_batch_rows_cells(tmp_path, suffix, trait_columns, rows_per_batch):
     # every trait column of a row is a cell: 262,144 rows of 100 trait columns at once took
     # 3 GiB at peak; the rows per batch are cut (to at least MIN_BATCH_ROWS = 64)
     rows = 2530
@@ -398,6 +396,27 @@ def test_in_memory_tables_are_written_in_slices(demo_frames, tmp_path, monkeypat
     write_package(demo_frames, tmp_path / "sliced", info, fmt=fmt)
     assert sizes and max(sizes) == 10 and sum(sizes) == sum(map(len, demo_frames.values()))
     assert _files(tmp_path / "whole") == _files(tmp_path / "sliced")
+
+
+def test_text_sliced_from_a_large_column_is_written_as_it_reads(tmp_path):
+    # pandas holds text as large_string; a slice of a column of over 2 GiB (20 million rejects)
+    # kept offsets past 2**31 and its cast to string failed. Small here: the slice must still
+    # come out as its own rows.
+    rows = 300
+    frame = tables.REJECTS.empty_frame().reindex(range(rows))
+    frame["source_id"] = "s"
+    frame["source_row"] = range(1, rows + 1)
+    frame["column"] = pd.array(
+        [f"c{i}" for i in range(rows)], dtype=pd.ArrowDtype(pa.large_string())
+    )
+    frame["reason"] = "not-a-number"
+    frame["message"] = "ä message"
+    writer = ResourceWriter(tables.REJECTS, tmp_path, "parquet")
+    writer.write(frame.iloc[250:])
+    writer.close()
+    written = pq.read_table(tmp_path / "rejects.parquet")
+    assert written["column"].to_pylist() == [f"c{i}" for i in range(250, rows)]
+    assert written.schema.field("column").type == pa.string()
 
 
 def test_parquet_dictionaries_stay_small(tmp_path):

@@ -80,7 +80,7 @@ def summary_lines(report: BuildReport) -> list[str]:
     else:
         lines += [
             f"validation (column-wise with pyarrow): {state}; frictionless row-by-row "
-            "validation not run (default only up to 200,000 values; --frictionless runs it)"
+            "validation not run (default only up to 200,000 rows; --frictionless runs it)"
         ]
     if report.changes_skipped and report.changes is None:
         lines.append(
