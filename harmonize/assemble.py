@@ -126,8 +126,8 @@ class _Fate:
             np.concatenate(p) for p in zip(*self._rejected, strict=True)
         )
         chosen = self.cells.take(positions)
-        # Built as Arrow text, not Python strings: a source whose millions of cells are all
-        # rejected held about 450 bytes per reject as objects (3 GiB at 5 million rows).
+        # Built as Arrow text, not Python strings: the package's tables hold Arrow-backed text
+        # anyway, and at 1 million all-rejected rows gathering took 2.5 s instead of 3.5 s.
         return pa.table(
             {
                 "source_row": chosen["source_row"].to_numpy(),

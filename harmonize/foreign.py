@@ -155,9 +155,8 @@ def _first_ragged_row(
     """Only on the error path: the first data row (1 = the first after the skipped header
     lines) whose field count differs from the first data row's, or None if none is found."""
     quoting = {"quotechar": quote} if quote else {"quoting": csv.QUOTE_NONE}
-    codec = "utf-8" if encoding == "utf8" else encoding
-    try:
-        with reopen() as raw, io.TextIOWrapper(raw, codec, errors="replace", newline="") as text:
+    try:  # Python's codecs know Arrow's 'utf8' too
+        with reopen() as raw, io.TextIOWrapper(raw, encoding, errors="replace", newline="") as text:
             rows = csv.reader(text, delimiter=delimiter, **quoting)
             width = None
             for number, fields in enumerate(rows, start=1 - skip_rows):

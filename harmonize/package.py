@@ -324,7 +324,7 @@ def _arrow_table(frame: pd.DataFrame, resource: data_model.Resource, schema: pa.
     for column in resource.columns:
         series = frame[column.name]
         if column.type == "date":
-            strings = pa.array(series, type=pa.string(), from_pandas=True)
+            strings = _small_text(pa.array(series, type=pa.large_string(), from_pandas=True))
             arrays.append(_parse_dates(strings, resource, column.name))
         elif column.type == "string":
             arrays.append(_small_text(pa.array(series, from_pandas=True)))

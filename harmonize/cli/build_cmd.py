@@ -120,8 +120,7 @@ def _counts(report: BuildReport) -> dict:
     default=None,
     help="Compare the package with the previous one and write OUTPUT.changes.json and .txt "
     "(default: only packages of at most 200,000 rows: values, summaries and rejects; larger "
-    "ones are compared "
-    "column by column from the files).",
+    "ones are compared column by column from the files).",
 )
 @click.option(
     "--log-json",
