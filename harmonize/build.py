@@ -14,7 +14,6 @@ from __future__ import annotations
 import hashlib
 import json
 import shutil
-from collections import Counter
 from dataclasses import asdict, dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -28,6 +27,7 @@ from harmonize.errors import BuildError, SourceNotFoundError
 from harmonize.incremental import SourceCache, default_cache_folder, source_key
 from harmonize.ingest import (
     Progress,
+    RejectSink,
     SourceAccount,
     SourceInput,
     ValueSink,
@@ -45,8 +45,8 @@ __all__ = ["BuildReport", "SourceAccount", "build_project", "build_tables", "cha
 
 # A package of at most this many rows (individual values, summaries, rejects and the small
 # tables) is "small": frictionless validates it row by row and the change report compares it
-# with the previous build; a source of at most this many individual values keeps them in
-# memory for the report and the cache. Larger packages are streamed to disk and checked
+# with the previous build; a source of at most this many individual values (and rejects)
+# keeps them in memory for the report and the cache. Larger packages are streamed to disk and checked
 # column-wise with pyarrow only (frictionless reads about 35-60k rows/s: ECOSYSTEM-NOTES §6).
 # Rejects count: a source of millions of rows that are all rejected is a large package.
 SMALL_PACKAGE_ROWS = 200_000
@@ -62,8 +62,8 @@ class BuildReport:
     accounts: tuple[SourceAccount, ...]
     validation: ValidationResult
     vocabulary_version: str
-    # the package's tables; `individual_values` is in memory only for small packages
-    # (SMALL_PACKAGE_ROWS), otherwise it is empty here and read from the written package
+    # the package's tables; `individual_values` and `rejects` are in memory only while they
+    # are small (SMALL_PACKAGE_ROWS), otherwise empty here: read them from the written package
     tables: dict[str, pd.DataFrame] = field(repr=False, default_factory=dict)
     changes: ChangeReport | None = None
     changes_files: tuple[Path, ...] = ()  # the JSON and text change reports beside the output
@@ -128,6 +128,7 @@ def _source_checksum(mapping: Mapping, limits: Limits) -> str:
 
 # The frames one source contributes besides its individual values; the cache stores them.
 _SOURCE_FRAMES = ("population_summaries", "rejects", "name_matches")
+_GATHERED_FRAMES = ("population_summaries", "name_matches")  # rejects go to a RejectSink
 
 
 @dataclass
@@ -140,16 +141,17 @@ class _Gathered:
 def _gather(
     project: Project,
     sink: ValueSink,
+    reject_sink: RejectSink,
     progress: Progress | None,
     cache: SourceCache | None,
     full: bool,
     inputs: dict[str, SourceInput] | None = None,
 ) -> _Gathered:
-    """Read (or reuse) every source, in source-id order: values go to `sink`, the rest is
-    gathered into the package's other tables."""
+    """Read (or reuse) every source, in source-id order: values go to `sink`, rejects to
+    `reject_sink`, the rest is gathered into the package's other tables."""
     settings = build_settings(project)
     vocabulary = settings.vocabulary
-    contributed: dict[str, list[pd.DataFrame]] = {name: [] for name in _SOURCE_FRAMES}
+    contributed: dict[str, list[pd.DataFrame]] = {name: [] for name in _GATHERED_FRAMES}
     source_rows: list[dict] = []
     accounts: list[SourceAccount] = []
     used: set[str] = set()
@@ -163,7 +165,9 @@ def _gather(
         if replaced is not None:
             if progress:
                 progress("source", {"source": mapping.source, "path": replaced.path})
-            output = read_source(project, mapping, settings, sink, progress, replaced.stager)
+            output = read_source(
+                project, mapping, settings, sink, progress, replaced.stager, reject_sink
+            )
             frames, account = output.frames, output.account
         elif cached is not None:
             frames = cached.frames
@@ -171,23 +175,28 @@ def _gather(
             sink.begin_source()
             sink.add(frames["individual_values"])
             sink.end_source()
+            reject_sink.begin_source()
+            reject_sink.add(frames["rejects"], mapping.source)
+            reject_sink.end_source()
             if progress:
                 progress("source-reused", {"source": mapping.source, "path": str(mapping.path)})
         else:
             if progress:
                 progress("source", {"source": mapping.source, "path": str(mapping.path)})
-            output = read_source(project, mapping, settings, sink, progress)
+            output = read_source(
+                project, mapping, settings, sink, progress, reject_sink=reject_sink
+            )
             frames, account = output.frames, output.account
             # a source too large to keep in memory is not cached: reading it again costs about
             # what copying its stored output would
-            if cache is not None and output.values is not None:
-                stored = {**frames, "individual_values": output.values}
+            if cache is not None and output.values is not None and output.rejects is not None:
+                stored = {**frames, "individual_values": output.values, "rejects": output.rejects}
                 cache.store(mapping.source, key, stored, {"account": _account_fields(account)})
         accounts.append(account)
         source_rows.append(
             _source_row(project, mapping, sha256, account, replaced.path if replaced else None)
         )
-        for name in _SOURCE_FRAMES:
+        for name in _GATHERED_FRAMES:
             contributed[name].append(frames[name])
         summaries = frames["population_summaries"]
         if not summaries.empty:
@@ -204,7 +213,6 @@ def _gather(
         ),
         "traits": _trait_rows(vocabulary, sorted(used)),
         "sources": pd.DataFrame(source_rows),
-        "rejects": _concat(contributed["rejects"], tables.REJECTS),
         "name_matches": _concat(contributed["name_matches"], tables.NAME_MATCHES),
     }
     return _Gathered(result, accounts, vocabulary)
@@ -225,13 +233,15 @@ def build_tables(
     cache). Either way the tables are the same.
     """
     sink = ValueSink()
-    gathered = _gather(project, sink, progress, cache, full)
+    reject_sink = RejectSink()
+    gathered = _gather(project, sink, reject_sink, progress, cache, full)
     values = sink.kept()
     frames = {
         "individual_values": _concat(
             [values] if values is not None else [], tables.INDIVIDUAL_VALUES
         ),
         **gathered.frames,
+        "rejects": reject_sink.kept(),
     }
     return frames, gathered.accounts, gathered.vocabulary
 
@@ -323,7 +333,7 @@ def build_project(
         if leftovers and progress:
             progress("leftovers-removed", {"removed": list(leftovers)})
         staging = publish.new_staging_folder(output)
-        writer = None
+        writer = reject_writer = None
         try:
             # a Parquet package's values are checked as they are written, not read back
             streamed = (
@@ -337,9 +347,12 @@ def build_project(
                 project.output_format,
                 observe=streamed.add if streamed is not None else None,
             )
+            reject_writer = ResourceWriter(tables.REJECTS, staging, project.output_format)
             sink = ValueSink(writer, keep_rows=SMALL_PACKAGE_ROWS)
-            gathered = _gather(project, sink, progress, cache, full, inputs)
+            reject_sink = RejectSink(reject_writer, keep_rows=SMALL_PACKAGE_ROWS)
+            gathered = _gather(project, sink, reject_sink, progress, cache, full, inputs)
             values_file, writer = writer.close(), None
+            rejects_file, reject_writer = reject_writer.close(), None
             accounts = gathered.accounts
             unbalanced = [a for a in accounts if not a.balanced]
             if unbalanced:
@@ -355,10 +368,15 @@ def build_project(
                 staging,
                 _package_info(project, gathered.vocabulary),
                 fmt=project.output_format,
-                written={tables.INDIVIDUAL_VALUES.name: values_file},
+                written={
+                    tables.INDIVIDUAL_VALUES.name: values_file,
+                    tables.REJECTS.name: rejects_file,
+                },
             )
             flushing = publish.flush_in_background(staging)
-            package_rows = values_file.rows + sum(map(len, gathered.frames.values()))
+            package_rows = (
+                values_file.rows + rejects_file.rows + sum(map(len, gathered.frames.values()))
+            )
             small = package_rows <= SMALL_PACKAGE_ROWS
             run_frictionless = small if frictionless is None else frictionless
             validation = _validate(staging, run_frictionless, streamed)
@@ -386,8 +404,9 @@ def build_project(
                 progress("changes-skipped", {"rows": package_rows, "large": not small})
             publish.swap_into_place(staging, output, flushing)
         finally:
-            if writer is not None:
-                writer.abort()
+            for open_writer in (writer, reject_writer):
+                if open_writer is not None:
+                    open_writer.abort()
             if staging.exists():
                 shutil.rmtree(staging, ignore_errors=True)
         changes_files: tuple[Path, ...] = ()
@@ -406,12 +425,13 @@ def build_project(
         "individual_values": kept if kept is not None else tables.INDIVIDUAL_VALUES.empty_frame(),
         **frames,
     }
-    rejects = frames["rejects"]
+    kept_rejects = reject_sink.kept()
+    frames["rejects"] = kept_rejects if kept_rejects is not None else tables.REJECTS.empty_frame()
     return BuildReport(
         output=output,
         individual_values=values_file.rows,
         population_summaries=len(frames["population_summaries"]),
-        rejects_by_reason=dict(sorted(Counter(rejects["reason"].astype(str)).items())),
+        rejects_by_reason=dict(sorted(reject_sink.reasons.items())),
         names_needing_review=_needing_review(frames),
         accounts=tuple(accounts),
         validation=validation,

@@ -27,7 +27,14 @@ from harmonize.assemble import SourcePlan, assemble_batch
 from harmonize.cells import CellBatch
 from harmonize.errors import ConfigError
 from harmonize.match import MatchSettings, NameMatch, match_names, normalise_name
-from harmonize.package import ResourceWriter, frame_of_table, prepare_frame, prepare_table
+from harmonize.package import (
+    WRITE_SLICE_ROWS,
+    ResourceWriter,
+    frame_of_table,
+    prepare_frame,
+    prepare_table,
+    sorted_rows,
+)
 from harmonize.project import Mapping, Project
 from harmonize.review import read_decisions
 from harmonize.summaries import (
@@ -261,12 +268,77 @@ class ValueSink:
         return pd.concat(self._all, ignore_index=True)
 
 
+class RejectSink:
+    """Takes a build's rejects source by source, in the package's row order.
+
+    With a `writer`, rejects are written as they come, so a source whose millions of cells are
+    all rejected is not held in memory. Each frame is sorted by the rejects' key (source row,
+    column) before it is taken: a source's frames must cover increasing, disjoint row ranges
+    (the batches of an individual-level source), or be the whole source at once. Rejects are
+    also kept in memory per source while it has at most `keep_rows` (for the cache) and for
+    the build while it has at most `keep_rows` in all (for the report); `keep_rows=None`
+    keeps everything (the in-memory build).
+    """
+
+    def __init__(self, writer: ResourceWriter | None = None, keep_rows: int | None = None):
+        self.writer = writer
+        self.keep_rows = keep_rows
+        self.rows = 0
+        self.reasons: Counter[str] = Counter()
+        self._all: list[pd.DataFrame] | None = []
+        self._source: list[pd.DataFrame] | None = []
+        self._source_rows = 0
+
+    def _within(self, rows: int) -> bool:
+        return self.keep_rows is None or rows <= self.keep_rows
+
+    def begin_source(self) -> None:
+        self._source, self._source_rows = [], 0
+
+    def add(self, frame: pd.DataFrame, source_id: str) -> None:
+        if frame.empty:
+            return
+        frame = prepare_frame(frame.assign(source_id=source_id), tables.REJECTS)
+        frame = sorted_rows(frame, tables.REJECTS)
+        if self.writer is not None:
+            for start in range(0, len(frame), WRITE_SLICE_ROWS):
+                self.writer.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
+        self.rows += len(frame)
+        self._source_rows += len(frame)
+        self.reasons.update(frame["reason"].value_counts().to_dict())
+        if self._source is not None:
+            self._source = self._source + [frame] if self._within(self._source_rows) else None
+        if self._all is not None:
+            self._all = self._all + [frame] if self._within(self.rows) else None
+
+    @property
+    def source_rows(self) -> int:
+        """Rejects taken from the source being read."""
+        return self._source_rows
+
+    def end_source(self) -> pd.DataFrame | None:
+        """The rejects of the source just read, or None when too many were read to keep."""
+        kept, self._source = self._source, []
+        if kept is None:
+            return None
+        return pd.concat(kept, ignore_index=True) if kept else tables.REJECTS.empty_frame()
+
+    def kept(self) -> pd.DataFrame | None:
+        """Every reject taken so far, or None when there were too many to keep."""
+        if self._all is None:
+            return None
+        return (
+            pd.concat(self._all, ignore_index=True) if self._all else tables.REJECTS.empty_frame()
+        )
+
+
 @dataclass(frozen=True)
 class SourceOutput:
     """What one source contributes besides the values handed to the sink."""
 
-    frames: dict[str, pd.DataFrame]  # population_summaries, rejects, name_matches
+    frames: dict[str, pd.DataFrame]  # population_summaries, name_matches
     values: pd.DataFrame | None  # its individual values if the sink kept them
+    rejects: pd.DataFrame | None  # its rejects if the reject sink kept them
     account: SourceAccount
 
 
@@ -367,8 +439,10 @@ def read_source(
     sink: ValueSink,
     progress: Progress | None = None,
     stager: Callable[[Project, BuildSettings, dict], Stager] | None = None,
+    reject_sink: RejectSink | None = None,
 ) -> SourceOutput:
-    """Read one source; its values go to `sink`, the rest comes back with its account.
+    """Read one source; its values go to `sink` and its rejects to `reject_sink` (default:
+    kept in memory), the rest comes back with its account.
 
     `stager` makes the staged batches (default: read the file here); the distributed path
     passes one that stages partitions of a dataset on a cluster."""
@@ -376,6 +450,12 @@ def read_source(
     plan = new_plan(project, mapping, settings)
     staged = (stager or _local_stager)(project, settings, decisions)
     sink.begin_source(keep=project.aggregate_individuals is not None)
+    reject_sink = reject_sink if reject_sink is not None else RejectSink()
+    reject_sink.begin_source()
+    # An individual-level source's rejects go out batch by batch (batches are increasing row
+    # ranges); a population source's are held, as its statistic cells are: summarising them
+    # rejects more cells, anywhere in the source, at its end.
+    streamed = mapping.level == "individual"
     rows = cells_total = empty = 0
     statistic_cells: list[pd.DataFrame] = []
     rejects: list[pd.DataFrame] = []
@@ -388,7 +468,9 @@ def read_source(
         sink.add(batch.individual, prepared=True)
         if not batch.statistic_cells.empty:
             statistic_cells.append(batch.statistic_cells)
-        if not batch.rejects.empty:
+        if streamed:
+            reject_sink.add(batch.rejects, mapping.source)
+        elif not batch.rejects.empty:
             rejects.append(batch.rejects)
         if progress:
             progress(
@@ -401,27 +483,23 @@ def read_source(
         project, mapping, statistic_cells, values
     )
     written += summary_written
-    rejected = (
-        pd.concat(rejects + summary_rejects, ignore_index=True)
-        if rejects or summary_rejects
-        else pd.DataFrame()
-    )
-    if not rejected.empty:
-        rejected["source_id"] = mapping.source
+    if rejects or summary_rejects:
+        reject_sink.add(pd.concat(rejects + summary_rejects, ignore_index=True), mapping.source)
     account = SourceAccount(
         source_id=mapping.source,
         rows_read=rows,
         cells=cells_total,
         values_written=written,
-        cells_rejected=len(rejected),
+        cells_rejected=reject_sink.source_rows,
         cells_empty=empty,
     )
     frames = {
         "population_summaries": population,
-        "rejects": rejected,
         "name_matches": name_match_rows(mapping.source, plan, name_cells),
     }
-    return SourceOutput(frames=frames, values=values, account=account)
+    return SourceOutput(
+        frames=frames, values=values, rejects=reject_sink.end_source(), account=account
+    )
 
 
 def _population(

@@ -146,7 +146,7 @@ def write_package(
     for resource in data_model.RESOURCES:
         done = (written or {}).get(resource.name)
         if done is None:
-            frame = _sorted_rows(prepare_frame(tables.get(resource.name), resource), resource)
+            frame = sorted_rows(prepare_frame(tables.get(resource.name), resource), resource)
             if resource.name == data_model.TRAITS.name:
                 roles = _trait_roles(frame)
             writer = ResourceWriter(resource, folder, fmt)
@@ -276,7 +276,7 @@ def row_order(resource: data_model.Resource) -> list[str]:
     return list(resource.primary_key)
 
 
-def _sorted_rows(frame: pd.DataFrame, resource: data_model.Resource) -> pd.DataFrame:
+def sorted_rows(frame: pd.DataFrame, resource: data_model.Resource) -> pd.DataFrame:
     # A stable sort keeps input order among ties, so even duplicate keys (which validation will
     # report) give the same bytes from the same input.
     return frame.sort_values(row_order(resource), kind="mergesort", na_position="last").reset_index(

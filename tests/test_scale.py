@@ -26,12 +26,13 @@ from hypothesis import strategies as st
 from harmonize import build, package, sources, tables
 from harmonize.arrow_validate import (
     ResourceCheck,
-    hex_key_numbers,
     accounting_problems,
     check_package_arrow,
+    hex_key_numbers,
 )
 from harmonize.build import build_project, build_tables
 from harmonize.changes import compare_values, read_package_tables
+from harmonize.ingest import RejectSink
 from harmonize.package import (
     PackageInfo,
     ResourceWriter,
@@ -143,6 +144,31 @@ def test_large_build_accounts_for_every_row_and_keeps_values_out_of_memory(
     rows = written.column("source_row").to_numpy()
     assert len(rows) == account.values_written
     assert (rows[1:] > rows[:-1]).all()  # source-row order, each long row once
+
+
+def test_rejects_go_to_the_package_batch_by_batch(long_project, in_memory, tmp_path, monkeypatch):
+    # An individual-level source's rejects are written as its batches come and not held: 5
+    # million invented rows that were almost all rejected peaked at 3.1 GiB while a build held
+    # its rejects until the end, 932 MiB since.
+    monkeypatch.setattr(build, "SMALL_PACKAGE_ROWS", 100)  # far fewer than the rejects
+    taken = []
+    original = RejectSink.add
+
+    def recording(self, frame, source_id):
+        taken.append(len(frame))
+        return original(self, frame, source_id)
+
+    monkeypatch.setattr(RejectSink, "add", recording)
+    report = build_project(load_project(long_project), output=tmp_path / "out", incremental=False)
+    expected = in_memory[0]["rejects"]
+    assert sum(taken) == len(expected) and len([n for n in taken if n]) > 1
+    assert max(taken) <= BATCH_ROWS  # one batch's rejects at a time (a long row is one cell)
+    assert report.tables["rejects"].empty  # too many to keep in memory
+    assert report.rejects_by_reason == dict(sorted(Counter(expected["reason"]).items()))
+    written = pq.read_table(tmp_path / "out" / "rejects.parquet").to_pandas()
+    key = ["source_row", "column", "reason", "message"]
+    assert written[key].astype(str).values.tolist() == expected[key].astype(str).values.tolist()
+    assert report.accounts[0].cells_rejected == len(expected) and report.balanced
 
 
 def test_wide_sources_read_in_tiny_batches_give_the_same_package(tmp_path):
@@ -379,10 +405,7 @@ def test_in_memory_tables_are_written_in_slices(demo_frames, tmp_path, monkeypat
     # 20 million rejects written whole failed ("input array too large": one text column over
     # 2 GiB) after peaking at 15 GiB; a table goes to its writer WRITE_SLICE_ROWS at a time,
     # and the bytes are those of one whole write
-    info = PackageInfo(
-        name="sliced", title="t", description="d", version="0.0.0", created=None,
-        vocabulary_version="1", tool_version="0",
-    )  # fmt: skip
+    info = INFO
     write_package(demo_frames, tmp_path / "whole", info, fmt=fmt)
     sizes = []
     original = ResourceWriter.write
