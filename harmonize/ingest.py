@@ -191,20 +191,15 @@ def name_counts(names: pd.Series) -> dict[str, int]:
     return dict(counts)
 
 
-class ValueSink:
-    """Takes a build's individual values batch by batch, in the package's row order.
+class _KeptFrames:
+    """Frames a sink keeps in memory: per source while the source has at most `keep_rows` rows
+    (or always, when the source asks to be kept), and for the whole build while it has at most
+    `keep_rows` in all; `keep_rows=None` keeps everything (the in-memory build)."""
 
-    With a `writer`, every batch is written at once (a streamed build). Values are also kept in
-    memory, per source while the source has at most `keep_rows` of them (for the cache and
-    for aggregation) and for the whole build while it has at most `keep_rows` in all (for the
-    build report); `keep_rows=None` keeps everything (the in-memory build).
-    """
-
-    def __init__(self, writer: ResourceWriter | None = None, keep_rows: int | None = None):
-        self.writer = writer
+    def __init__(self, keep_rows: int | None, resource: tables.Resource) -> None:
         self.keep_rows = keep_rows
+        self.resource = resource
         self.rows = 0
-        self.trait_ids: set[str] = set()  # traits met in the values (for the `traits` table)
         self._all: list[pd.DataFrame] | None = []
         self._source: list[pd.DataFrame] | None = []
         self._source_rows = 0
@@ -214,8 +209,55 @@ class ValueSink:
         return self.keep_rows is None or rows <= self.keep_rows
 
     def begin_source(self, keep: bool = False) -> None:
-        """Start a source; `keep=True` keeps its values whatever their number (aggregation)."""
+        """Start a source; `keep=True` keeps its rows whatever their number."""
         self._source, self._source_rows, self._keep_source = [], 0, keep
+
+    def _count(self, rows: int) -> tuple[bool, bool]:
+        """Count rows taken; whether they are kept for the source and for the build."""
+        self.rows += rows
+        self._source_rows += rows
+        keep_source = self._source is not None and (
+            self._keep_source or self._within(self._source_rows)
+        )
+        return keep_source, self._all is not None and self._within(self.rows)
+
+    def _keep(self, frame: pd.DataFrame, keep_source: bool, keep_all: bool) -> None:
+        if self._source is not None:
+            self._source = self._source + [frame] if keep_source else None
+        if self._all is not None:
+            self._all = self._all + [frame] if keep_all else None
+
+    @property
+    def source_rows(self) -> int:
+        """Rows taken from the source being read."""
+        return self._source_rows
+
+    def end_source(self) -> pd.DataFrame | None:
+        """The rows of the source just read, or None when too many were read to keep."""
+        kept, self._source = self._source, []
+        if kept is None:
+            return None
+        return pd.concat(kept, ignore_index=True) if kept else self.resource.empty_frame()
+
+    def kept(self) -> pd.DataFrame | None:
+        """Every row taken so far, or None when there were too many to keep."""
+        if self._all is None:
+            return None
+        return pd.concat(self._all, ignore_index=True) if self._all else self.resource.empty_frame()
+
+
+class ValueSink(_KeptFrames):
+    """Takes a build's individual values batch by batch, in the package's row order.
+
+    With a `writer`, every batch is written at once (a streamed build). Values are also kept in
+    memory (`_KeptFrames`: per source for the cache and for aggregation, for the build for its
+    report).
+    """
+
+    def __init__(self, writer: ResourceWriter | None = None, keep_rows: int | None = None):
+        super().__init__(keep_rows, tables.INDIVIDUAL_VALUES)
+        self.writer = writer
+        self.trait_ids: set[str] = set()  # traits met in the values (for the `traits` table)
 
     def add(self, frame: pd.DataFrame | pa.Table, *, prepared: bool = False) -> None:
         """Take a batch of values: a frame (`prepared`: it went through
@@ -226,8 +268,6 @@ class ValueSink:
             frame = prepare_frame(frame, tables.INDIVIDUAL_VALUES)
         if self.writer is not None:
             self.writer.write(frame)
-        self.rows += len(frame)
-        self._source_rows += len(frame)
         if isinstance(frame, pa.Table):
             traits = frame["trait_id"].combine_chunks()
             if pa.types.is_dictionary(traits.type):  # the texts its codes use
@@ -236,64 +276,26 @@ class ValueSink:
         else:
             traits = frame["trait_id"].dropna().unique()
         self.trait_ids.update(str(t) for t in traits)
-        keep_source = self._source is not None and (
-            self._keep_source or self._within(self._source_rows)
-        )
-        keep_all = self._all is not None and self._within(self.rows)
+        keep_source, keep_all = self._count(len(frame))
         if (keep_source or keep_all) and isinstance(frame, pa.Table):
             frame = frame_of_table(frame)  # pandas only for values that are kept
-        if self._source is not None:
-            self._source = self._source + [frame] if keep_source else None
-        if self._all is not None:
-            self._all = self._all + [frame] if keep_all else None
-
-    @property
-    def source_rows(self) -> int:
-        """Values taken from the source being read."""
-        return self._source_rows
-
-    def end_source(self) -> pd.DataFrame | None:
-        """The values of the source just read, or None when too many were read to keep."""
-        kept, self._source = self._source, []
-        if kept is None:
-            return None
-        return pd.concat(kept, ignore_index=True) if kept else pd.DataFrame()
-
-    def kept(self) -> pd.DataFrame | None:
-        """Every value taken so far, or None when there were too many to keep."""
-        if self._all is None:
-            return None
-        if not self._all:
-            return tables.INDIVIDUAL_VALUES.empty_frame()
-        return pd.concat(self._all, ignore_index=True)
+        self._keep(frame, keep_source, keep_all)
 
 
-class RejectSink:
+class RejectSink(_KeptFrames):
     """Takes a build's rejects source by source, in the package's row order.
 
     With a `writer`, rejects are written as they come, so a source whose millions of cells are
     all rejected is not held in memory. Each frame is sorted by the rejects' key (source row,
     column) before it is taken: a source's frames must cover increasing, disjoint row ranges
     (the batches of an individual-level source), or be the whole source at once. Rejects are
-    also kept in memory per source while it has at most `keep_rows` (for the cache) and for
-    the build while it has at most `keep_rows` in all (for the report); `keep_rows=None`
-    keeps everything (the in-memory build).
+    also kept in memory (`_KeptFrames`: per source for the cache, for the build for its report).
     """
 
     def __init__(self, writer: ResourceWriter | None = None, keep_rows: int | None = None):
+        super().__init__(keep_rows, tables.REJECTS)
         self.writer = writer
-        self.keep_rows = keep_rows
-        self.rows = 0
         self.reasons: Counter[str] = Counter()
-        self._all: list[pd.DataFrame] | None = []
-        self._source: list[pd.DataFrame] | None = []
-        self._source_rows = 0
-
-    def _within(self, rows: int) -> bool:
-        return self.keep_rows is None or rows <= self.keep_rows
-
-    def begin_source(self) -> None:
-        self._source, self._source_rows = [], 0
 
     def add(self, frame: pd.DataFrame, source_id: str) -> None:
         if frame.empty:
@@ -303,33 +305,8 @@ class RejectSink:
         if self.writer is not None:
             for start in range(0, len(frame), WRITE_SLICE_ROWS):
                 self.writer.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
-        self.rows += len(frame)
-        self._source_rows += len(frame)
         self.reasons.update(frame["reason"].value_counts().to_dict())
-        if self._source is not None:
-            self._source = self._source + [frame] if self._within(self._source_rows) else None
-        if self._all is not None:
-            self._all = self._all + [frame] if self._within(self.rows) else None
-
-    @property
-    def source_rows(self) -> int:
-        """Rejects taken from the source being read."""
-        return self._source_rows
-
-    def end_source(self) -> pd.DataFrame | None:
-        """The rejects of the source just read, or None when too many were read to keep."""
-        kept, self._source = self._source, []
-        if kept is None:
-            return None
-        return pd.concat(kept, ignore_index=True) if kept else tables.REJECTS.empty_frame()
-
-    def kept(self) -> pd.DataFrame | None:
-        """Every reject taken so far, or None when there were too many to keep."""
-        if self._all is None:
-            return None
-        return (
-            pd.concat(self._all, ignore_index=True) if self._all else tables.REJECTS.empty_frame()
-        )
+        self._keep(frame, *self._count(len(frame)))
 
 
 @dataclass(frozen=True)
