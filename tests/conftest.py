@@ -7,8 +7,14 @@ import importlib.util
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
 
 REPO = Path(__file__).resolve().parents[1]
+
+# No wall-clock deadline for property tests that set none themselves: CI machines are shared,
+# and a slow moment would fail an example that is only slow (DeadlineExceeded or Flaky).
+settings.register_profile("harmonize-default", deadline=None)
+settings.load_profile("harmonize-default")
 
 
 @pytest.fixture(scope="session")
