@@ -31,155 +31,32 @@ the later stages; this module only reads.
 from __future__ import annotations
 
 import csv
-import io
 import json
 import os
 import xml.etree.ElementTree as ET
 import zipfile
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from dataclasses import dataclass
-from pathlib import Path, PurePosixPath, PureWindowsPath
+from pathlib import Path, PurePosixPath
 from typing import IO, Any
 
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from harmonize.errors import ConfigError, SourceReadError, UnsafePathError
+from harmonize.foreign_text import (
+    arrow_encoding,
+    check_size,
+    text_tables,
+    unsafe_member,
+)
 from harmonize.package_validate import DESCRIPTOR_NAME, check_paths
 from harmonize.project import Limits, Mapping
 
 _TEXT_NS = "{http://rs.tdwg.org/dwc/text/}"
 _ESCAPES = {"\\t": "\t", "\\n": "\n", "\\r": "\r"}
-
-
-# ---------------------------------------------------------------- shared
-
-
-def _unsafe_member(name: str) -> str | None:
-    """Why an archive path may not be followed, or None (zip-slip: absolute paths and '..')."""
-    posix = name.replace("\\", "/")
-    if posix.startswith("/") or PureWindowsPath(name).drive or PureWindowsPath(name).anchor:
-        return "is an absolute path"
-    if ".." in PurePosixPath(posix).parts:
-        return "goes up a folder ('..')"
-    return None
-
-
-def _check_size(size: int, limits: Limits, file: str) -> None:
-    if size > limits.max_file_bytes:
-        raise SourceReadError(
-            f"file is {size} bytes, above the limit of {limits.max_file_bytes}",
-            file=file,
-            hint="raise limits.max_file_bytes in harmonize.yaml if this is intended",
-        )
-
-
-def _text_tables(
-    stream: IO[bytes] | Path,
-    *,
-    file: str,
-    delimiter: str,
-    quote: str,
-    skip_rows: int,
-    encoding: str,
-    columns: dict[str, str],
-    batch_rows: int,
-    reopen: Callable[[], IO[bytes]],
-) -> Iterator[pa.Table]:
-    """Read the columns {position name 'f<i>': output name} of a delimited file as text, in
-    tables of at least `batch_rows` rows (the last may be shorter), streaming: memory follows
-    the batch, not the file. A file without rows gives one empty table. `reopen` opens the file
-    again, only on the error path, to name the row a parse error is in."""
-    names = list(columns)
-    pending: list[pa.RecordBatch] = []
-    pending_rows = 0
-    try:
-        reader = pacsv.open_csv(
-            stream,
-            read_options=pacsv.ReadOptions(
-                autogenerate_column_names=True,
-                skip_rows=skip_rows,
-                encoding=encoding,
-                block_size=1 << 22,
-            ),
-            parse_options=pacsv.ParseOptions(
-                delimiter=delimiter, quote_char=quote or False, newlines_in_values=bool(quote)
-            ),
-            convert_options=pacsv.ConvertOptions(
-                include_columns=names,
-                column_types=dict.fromkeys(names, pa.string()),
-                strings_can_be_null=False,
-                quoted_strings_can_be_null=False,
-            ),
-        )
-        schema = reader.schema
-        yielded = False
-        for batch in reader:
-            pending.append(batch)
-            pending_rows += batch.num_rows
-            if pending_rows >= batch_rows:
-                yield _renamed(pa.Table.from_batches(pending), columns)
-                yielded = True
-                pending, pending_rows = [], 0
-        if pending or not yielded:
-            yield _renamed(pa.Table.from_batches(pending, schema=schema), columns)
-    except KeyError as error:  # ArrowKeyError: a declared index beyond the file's columns
-        raise SourceReadError(
-            f"a declared column is not in the file ({error})",
-            file=file,
-            hint="check the field indexes in meta.xml against the file",
-        ) from None
-    except (pa.ArrowInvalid, UnicodeDecodeError) as error:
-        text = str(error).splitlines()[0]
-        if "Expected" in text and "columns" in text:
-            raise SourceReadError(
-                "row has a different number of fields than the first row",
-                file=file,
-                row=_first_ragged_row(reopen, delimiter, quote, skip_rows, encoding),
-                hint=f"check quoting and the declared delimiter {delimiter!r}",
-            ) from None
-        raise SourceReadError(
-            f"cannot read as delimited text ({text})",
-            file=file,
-            hint="rows must have as many fields as the first one; check the declared delimiter "
-            "and encoding",
-        ) from None
-
-
-def _first_ragged_row(
-    reopen: Callable[[], IO[bytes]], delimiter: str, quote: str, skip_rows: int, encoding: str
-) -> int | None:
-    """Only on the error path: the first data row (1 = the first after the skipped header
-    lines) whose field count differs from the first data row's, or None if none is found."""
-    quoting = {"quotechar": quote} if quote else {"quoting": csv.QUOTE_NONE}
-    try:  # Python's codecs know Arrow's 'utf8' too
-        with reopen() as raw, io.TextIOWrapper(raw, encoding, errors="replace", newline="") as text:
-            rows = csv.reader(text, delimiter=delimiter, **quoting)
-            width = None
-            for number, fields in enumerate(rows, start=1 - skip_rows):
-                if number < 1 or not fields:
-                    continue
-                if width is None:
-                    width = len(fields)
-                elif len(fields) != width:
-                    return number
-    except (csv.Error, LookupError, OSError):
-        return None
-    return None
-
-
-def _renamed(table: pa.Table, columns: dict[str, str]) -> pa.Table:
-    return table.rename_columns([columns[name] for name in table.column_names]).select(
-        list(columns.values())
-    )
-
-
-def _arrow_encoding(encoding: str) -> str:
-    """pyarrow names UTF-8 'utf8'; other encodings are passed on to Python's codecs."""
-    return "utf8" if encoding.lower().replace("-", "").replace("_", "") == "utf8" else encoding
 
 
 # ---------------------------------------------------------------- Darwin Core Archive
@@ -220,16 +97,16 @@ class _ArchiveFiles:
             ) from None
         total = 0
         for info in self.zip.infolist():
-            reason = _unsafe_member(info.filename)
+            reason = unsafe_member(info.filename)
             if reason:
                 raise UnsafePathError(
                     f"archive member {info.filename!r} {reason}; the archive is refused",
                     file=str(mapping.path),
                     hint="an archive may only hold files below its own root",
                 )
-            _check_size(info.file_size, limits, f"{mapping.path}:{info.filename}")
+            check_size(info.file_size, limits, f"{mapping.path}:{info.filename}")
             total += info.file_size
-        _check_size(total, limits, str(mapping.path))
+        check_size(total, limits, str(mapping.path))
         metas = [n for n in self.zip.namelist() if PurePosixPath(n).name == "meta.xml"]
         if not metas:
             raise SourceReadError(
@@ -251,7 +128,7 @@ class _ArchiveFiles:
         return f"{self.path}:{name}" if self.zip else str(self.folder / name)
 
     def _refuse_unsafe(self, name: str) -> None:
-        reason = _unsafe_member(name)
+        reason = unsafe_member(name)
         if reason:
             raise UnsafePathError(
                 f"meta.xml location {name!r} {reason}",
@@ -281,7 +158,7 @@ class _ArchiveFiles:
             )
         if not target.is_file():
             raise SourceReadError(f"meta.xml names {name!r}, which is missing", file=str(target))
-        _check_size(target.stat().st_size, self.limits, str(target))
+        check_size(target.stat().st_size, self.limits, str(target))
         return target
 
     def files(self) -> list[Path]:
@@ -387,13 +264,13 @@ def _spec_tables(
         else:
             by_index[index] = name
     with files.open(spec.location) as handle:
-        for table in _text_tables(
+        for table in text_tables(
             handle,
             file=files.where(spec.location),
             delimiter=spec.delimiter,
             quote=spec.quote,
             skip_rows=spec.skip_rows,
-            encoding=_arrow_encoding(spec.encoding),
+            encoding=arrow_encoding(spec.encoding),
             columns={f"f{index}": name for index, name in by_index.items()},
             batch_rows=batch_rows,
             reopen=lambda: files.open(spec.location),
@@ -589,7 +466,7 @@ def datapackage_header(mapping: Mapping) -> list[str]:
 def read_datapackage(mapping: Mapping, header: list[str], limits: Limits) -> Iterator[pd.DataFrame]:
     resource = _resource(mapping)
     for number, path in enumerate(resource.paths):
-        _check_size(path.stat().st_size if path.is_file() else 0, limits, str(path))
+        check_size(path.stat().st_size if path.is_file() else 0, limits, str(path))
         if resource.format == "parquet":
             frames = _parquet_batches(path, header, limits.batch_rows)
         else:
@@ -597,13 +474,13 @@ def read_datapackage(mapping: Mapping, header: list[str], limits: Limits) -> Ite
             skip = 1 if resource.header and number == 0 else 0
             frames = (
                 table.to_pandas()
-                for table in _text_tables(
+                for table in text_tables(
                     path,
                     file=str(path),
                     delimiter=resource.delimiter,
                     quote=resource.quote,
                     skip_rows=skip,
-                    encoding=_arrow_encoding(resource.encoding),
+                    encoding=arrow_encoding(resource.encoding),
                     columns={f"f{i}": name for i, name in enumerate(header)},
                     batch_rows=limits.batch_rows,
                     reopen=lambda path=path: open(path, "rb"),
