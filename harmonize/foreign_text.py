@@ -50,7 +50,7 @@ def text_tables(
     reopen: Callable[[], IO[bytes]],
 ) -> Iterator[pa.Table]:
     """Read the columns {position name 'f<i>': output name} of a delimited file as text, in
-    tables of at least `batch_rows` rows (the last may be shorter), streaming: memory follows
+    tables of `batch_rows` rows (the last may be shorter), streaming: memory follows
     the batch, not the file. A file without rows gives one empty table. `reopen` opens the file
     again, only on the error path, to name the row a parse error is in."""
     names = list(columns)
@@ -77,14 +77,16 @@ def text_tables(
         )
         schema = reader.schema
         yielded = False
-        for batch in reader:
+        for batch in reader:  # blocks of about 4 MiB, cut into tables of batch_rows rows
             pending.append(batch)
             pending_rows += batch.num_rows
-            if pending_rows >= batch_rows:
-                yield renamed_columns(pa.Table.from_batches(pending), columns)
+            while pending_rows >= batch_rows:
+                table = pa.Table.from_batches(pending, schema=schema)
+                yield renamed_columns(table.slice(0, batch_rows), columns)
                 yielded = True
-                pending, pending_rows = [], 0
-        if pending or not yielded:
+                rest = table.slice(batch_rows)
+                pending, pending_rows = rest.to_batches(), rest.num_rows
+        if pending_rows or not yielded:
             yield renamed_columns(pa.Table.from_batches(pending, schema=schema), columns)
     except KeyError as error:  # ArrowKeyError: a declared index beyond the file's columns
         raise SourceReadError(
