@@ -73,6 +73,7 @@ class BuildReport:
     # no change report: a large package (see SMALL_PACKAGE_ROWS) not asked for one, or one
     # asked not to make it (`change_report=False`)
     changes_skipped: bool = False
+    large: bool = False  # more rows than SMALL_PACKAGE_ROWS (values, summaries and rejects)
 
     @property
     def balanced(self) -> bool:
@@ -443,6 +444,7 @@ def build_project(
         leftovers_removed=leftovers,
         frictionless_checked=run_frictionless,
         changes_skipped=changes is None,
+        large=not small,
     )
 
 

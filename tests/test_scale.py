@@ -32,6 +32,7 @@ from harmonize.arrow_validate import (
 )
 from harmonize.build import build_project, build_tables
 from harmonize.changes import compare_values, read_package_tables
+from harmonize.cli.render import summary_lines
 from harmonize.ingest import RejectSink
 from harmonize.package import (
     PackageInfo,
@@ -215,8 +216,12 @@ def test_rejects_count_towards_a_large_package(tmp_path, monkeypatch):
     project = single_file_project(path, output=tmp_path / "out", context={"taxon": "species"})
     report = build_project(project)
     assert report.individual_values == 10 and report.rejects_by_reason == {"not-a-number": 60}
-    assert not report.frictionless_checked and report.changes_skipped
+    assert not report.frictionless_checked and report.changes_skipped and report.large
     assert report.validation.valid  # still checked column-wise
+    # the summary says why there is no change report (it said "--no-changes", never given)
+    assert "change report: skipped for a large package (--changes makes it)" in summary_lines(
+        report
+    )
 
 
 # --- planted problems ------------------------------------------------------------------------

@@ -7,7 +7,7 @@ import time
 
 import click
 
-from harmonize.build import SMALL_PACKAGE_ROWS, BuildReport
+from harmonize.build import BuildReport
 from harmonize.changes import report_text
 from harmonize.cli.options import text_table
 
@@ -85,7 +85,7 @@ def summary_lines(report: BuildReport) -> list[str]:
     if report.changes_skipped and report.changes is None:
         lines.append(
             "change report: skipped for a large package (--changes makes it)"
-            if report.individual_values > SMALL_PACKAGE_ROWS
+            if report.large
             else "change report: not made (--no-changes)"
         )
     if report.changes is not None:
