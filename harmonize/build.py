@@ -46,8 +46,9 @@ __all__ = ["BuildReport", "SourceAccount", "build_project", "build_tables", "cha
 # A package of at most this many rows (individual values, summaries, rejects and the small
 # tables) is "small": frictionless validates it row by row and the change report compares it
 # with the previous build; a source of at most this many individual values (and rejects)
-# keeps them in memory for the report and the cache. Larger packages are streamed to disk and checked
-# column-wise with pyarrow only (frictionless reads about 35-60k rows/s: ECOSYSTEM-NOTES §6).
+# keeps them in memory for the report and the cache. Larger packages are streamed to disk
+# and checked column-wise with pyarrow only (frictionless reads about 35-60k rows/s:
+# ECOSYSTEM-NOTES §6).
 # Rejects count: a source of millions of rows that are all rejected is a large package.
 SMALL_PACKAGE_ROWS = 200_000
 
@@ -127,9 +128,9 @@ def _source_checksum(mapping: Mapping, limits: Limits) -> str:
     return digest.hexdigest()
 
 
-# The frames one source contributes besides its individual values; the cache stores them.
-_SOURCE_FRAMES = ("population_summaries", "rejects", "name_matches")
-_GATHERED_FRAMES = ("population_summaries", "name_matches")  # rejects go to a RejectSink
+# The frames one source contributes besides its individual values and rejects (which go to
+# their sinks); the cache stores them with the values and rejects.
+_GATHERED_FRAMES = ("population_summaries", "name_matches")
 
 
 @dataclass
@@ -167,7 +168,13 @@ def _gather(
             if progress:
                 progress("source", {"source": mapping.source, "path": replaced.path})
             output = read_source(
-                project, mapping, settings, sink, progress, replaced.stager, reject_sink
+                project,
+                mapping,
+                settings,
+                sink,
+                progress,
+                stager=replaced.stager,
+                reject_sink=reject_sink,
             )
             frames, account = output.frames, output.account
         elif cached is not None:

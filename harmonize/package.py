@@ -29,7 +29,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from harmonize import tables as data_model
-from harmonize.descriptor import (  # noqa: F401 - PackageInfo, WrittenFile, schema_descriptor re-exported
+from harmonize.descriptor import (  # noqa: F401 - some are re-exported for callers
     MISSING_VALUES,
     PackageInfo,
     WrittenFile,
