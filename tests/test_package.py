@@ -9,7 +9,9 @@ datapackage.org profiles, vendored"), the frictionless command-line validator, a
 
 from __future__ import annotations
 
+import csv
 import hashlib
+import io
 import json
 import os
 import shutil
@@ -27,8 +29,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from harmonize import tables
 from harmonize.errors import BuildError, ConfigError, UnsafePathError
-from harmonize.package import PackageInfo, write_package
+from harmonize.package import PackageInfo, _csv_text, prepare_frame, write_package
 from harmonize.package_validate import check_paths, validate_package
 
 PROFILES = Path(__file__).parent / "data" / "profiles"
@@ -619,3 +622,72 @@ def test_symlink_that_stays_inside_is_accepted(tmp_path):
     (tmp_path / "traits.csv").symlink_to(tmp_path / "data" / "traits.csv")
     check_paths(tmp_path)
     assert validate_package(tmp_path).valid
+
+
+# --- CSV text: Arrow-built, byte for byte what pandas writes -------------------------------------
+
+_CSV_PROBE = tables.Resource(
+    name="csv_probe",
+    title="CSV probe",
+    description="Every column type of the data model.",
+    columns=(
+        tables.Column("text", "string", "text"),
+        tables.Column("count", "integer", "count"),
+        tables.Column("number", "number", "number"),
+        tables.Column("flag", "boolean", "flag"),
+        tables.Column("day", "date", "date"),
+    ),
+    primary_key=("text",),
+)
+_CELL_TEXT = st.one_of(
+    st.none(),
+    st.text(alphabet=st.sampled_from(list('ab ,"\r\n;é€\t') + ["x"]), max_size=8),
+    st.text(max_size=6),
+)
+_ROWS = st.lists(
+    st.tuples(
+        _CELL_TEXT,
+        st.one_of(st.none(), st.integers(min_value=-(2**63), max_value=2**63 - 1)),
+        st.one_of(st.none(), st.floats(allow_nan=True, allow_infinity=True)),
+        st.one_of(st.none(), st.booleans()),
+        st.one_of(st.none(), st.dates().map(str)),
+    ),
+    max_size=30,
+)
+
+
+def _rfc4180(pandas_text: str) -> str:
+    """pandas' cells, rows ended by '\\n', a cell quoted when it holds ',', '"', '\\r' or '\\n'
+    (RFC 4180 section 2). Python's csv module with '\\n' line ends leaves a lone '\\r' bare,
+    which readers take for a line break; our writer quotes it."""
+    rows = []
+    for cells in csv.reader(io.StringIO(pandas_text, newline="")):
+        buffer = io.StringIO(newline="")
+        csv.writer(buffer, lineterminator="\r\n").writerow(cells)  # quotes \r and \n alike
+        rows.append(buffer.getvalue()[:-2] + "\n")
+    return "".join(rows)
+
+
+@settings(max_examples=200, deadline=None)
+@given(_ROWS, st.booleans())
+def test_csv_text_is_what_pandas_writes(rows, header):
+    # pandas' to_csv (Python's csv module, minimal quoting, floats in their shortest round-trip
+    # form) is the reference the package's CSV bytes were written with before; the one
+    # difference is a lone carriage return, now quoted as RFC 4180 asks
+    texts, counts, numbers, flags, days = zip(*rows, strict=True) if rows else ([],) * 5
+    frame = prepare_frame(
+        pd.DataFrame(
+            {
+                "text": pd.array(list(texts), dtype="string"),
+                "count": pd.array(list(counts), dtype="Int64"),
+                "number": pd.array([float("nan") if x is None else x for x in numbers], "float64"),
+                "flag": pd.array(list(flags), dtype="boolean"),
+                "day": pd.array(list(days), dtype="string"),
+            }
+        ),
+        _CSV_PROBE,
+    )
+    reference = frame.copy()
+    reference["flag"] = reference["flag"].map({True: "true", False: "false"})
+    pandas_text = reference.to_csv(index=False, header=header, lineterminator="\r\n", na_rep="")
+    assert _csv_text(frame, _CSV_PROBE, header) == _rfc4180(pandas_text).encode("utf-8")
