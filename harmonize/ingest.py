@@ -28,7 +28,6 @@ from harmonize.cells import CellBatch
 from harmonize.errors import ConfigError
 from harmonize.match import MatchSettings, NameMatch, match_names, normalise_name
 from harmonize.package import (
-    WRITE_SLICE_ROWS,
     ResourceWriter,
     frame_of_table,
     prepare_frame,
@@ -303,8 +302,7 @@ class RejectSink(_KeptFrames):
         frame = prepare_frame(frame.assign(source_id=source_id), tables.REJECTS)
         frame = sorted_rows(frame, tables.REJECTS)
         if self.writer is not None:
-            for start in range(0, len(frame), WRITE_SLICE_ROWS):
-                self.writer.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
+            self.writer.write(frame)
         self.reasons.update(frame["reason"].value_counts().to_dict())
         self._keep(frame, *self._count(len(frame)))
 

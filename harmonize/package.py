@@ -98,10 +98,7 @@ def write_package(
             if resource.name == data_model.TRAITS.name:
                 roles = _trait_roles(frame)
             writer = ResourceWriter(resource, folder, fmt)
-            # in slices: a whole table of millions of rejects would be copied to Arrow or CSV
-            # text at once, and one text column over 2 GiB cannot be an Arrow string array
-            for start in range(0, len(frame), WRITE_SLICE_ROWS):
-                writer.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
+            writer.write(frame)
             done = writer.close()
         resources.append(resource_descriptor(resource, done, units.get(resource.name, {})))
 
@@ -253,7 +250,7 @@ PARQUET_ROW_GROUP_ROWS = 131_072
 # default limit at level 3 (benchmarks/, invented data; figures in the README).
 _DICTIONARY_PAGE_BYTES = 65_536
 
-# Rows of an in-memory table handed to its writer at a time (the bytes do not depend on it).
+# Rows of a frame a writer converts at a time (the bytes do not depend on it).
 WRITE_SLICE_ROWS = PARQUET_ROW_GROUP_ROWS
 
 
@@ -423,7 +420,15 @@ class ResourceWriter:
         self._size += len(data)
 
     def write(self, frame: pd.DataFrame | pa.Table) -> None:
-        """Write prepared rows: a frame from `prepare_frame` or a table from `prepare_table`."""
+        """Write prepared rows: a frame from `prepare_frame` or a table from `prepare_table`.
+
+        A frame is converted WRITE_SLICE_ROWS rows at a time: a whole table of millions of
+        rows (rejects) would be copied to Arrow or CSV text at once, and one text column over
+        2 GiB cannot be an Arrow string array. The bytes do not depend on it."""
+        if len(frame) > WRITE_SLICE_ROWS and isinstance(frame, pd.DataFrame):
+            for start in range(0, len(frame), WRITE_SLICE_ROWS):
+                self.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
+            return
         if len(frame) == 0:
             return
         self.rows += len(frame)

@@ -408,19 +408,20 @@ def test_parquet_bytes_do_not_depend_on_how_values_arrive(tmp_path):
 @pytest.mark.parametrize("fmt", ["csv", "parquet"])
 def test_in_memory_tables_are_written_in_slices(demo_frames, tmp_path, monkeypatch, fmt):
     # 20 million rejects written whole failed ("input array too large": one text column over
-    # 2 GiB) after peaking at 15 GiB; a table goes to its writer WRITE_SLICE_ROWS at a time,
-    # and the bytes are those of one whole write
+    # 2 GiB) after peaking at 15 GiB; a writer converts a frame WRITE_SLICE_ROWS rows at a
+    # time, and the bytes are those of one whole write
     info = INFO
     write_package(demo_frames, tmp_path / "whole", info, fmt=fmt)
     sizes = []
-    original = ResourceWriter.write
+    convert = "_csv_text" if fmt == "csv" else "_arrow_table"
+    original = getattr(package, convert)
 
-    def recording(self, frame):
+    def recording(frame, *args, **kwargs):
         sizes.append(len(frame))
-        return original(self, frame)
+        return original(frame, *args, **kwargs)
 
     monkeypatch.setattr(package, "WRITE_SLICE_ROWS", 10)
-    monkeypatch.setattr(ResourceWriter, "write", recording)
+    monkeypatch.setattr(package, convert, recording)
     write_package(demo_frames, tmp_path / "sliced", info, fmt=fmt)
     assert sizes and max(sizes) == 10 and sum(sizes) == sum(map(len, demo_frames.values()))
     assert _files(tmp_path / "whole") == _files(tmp_path / "sliced")
