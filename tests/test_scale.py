@@ -150,7 +150,7 @@ def test_large_build_accounts_for_every_row_and_keeps_values_out_of_memory(
 def test_rejects_go_to_the_package_batch_by_batch(long_project, in_memory, tmp_path, monkeypatch):
     # An individual-level source's rejects are written as its batches come and not held: 5
     # million invented rows that were almost all rejected peaked at 3.1 GiB while a build held
-    # its rejects until the end, 932 MiB since.
+    # its rejects until the end, 932-950 MiB since.
     monkeypatch.setattr(build, "SMALL_PACKAGE_ROWS", 100)  # far fewer than the rejects
     taken = []
     original = RejectSink.add
