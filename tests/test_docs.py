@@ -22,7 +22,9 @@ def shell_blocks() -> list[str]:
 
 def test_cli_reference_is_current() -> None:
     current = (REPO / "docs" / "cli.md").read_text(encoding="utf-8")
-    assert current == render_reference(), "docs/cli.md is stale: python -m harmonize.cli.reference > docs/cli.md"
+    assert current == render_reference(), (
+        "docs/cli.md is stale: python -m harmonize.cli.reference > docs/cli.md"
+    )
 
 
 def test_ci_runs_exactly_the_readme_test_command() -> None:
@@ -49,5 +51,9 @@ def test_readme_quick_example_runs(tmp_path: Path, capsys, monkeypatch) -> None:
         main(argv)
     assert exited.value.code == 0, capsys.readouterr().err
     values = pd.read_csv(tmp_path / "field-sheet-harmonized" / "individual_values.csv")
-    assert set(values["trait_id"]) == {"body_mass_wet", "critical_thermal_maximum", "snout_vent_length"}
+    assert set(values["trait_id"]) == {
+        "body_mass_wet",
+        "critical_thermal_maximum",
+        "snout_vent_length",
+    }
     assert len(values) == 5  # 6 cells, one declared missing ('n.d.')

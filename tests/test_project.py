@@ -72,7 +72,13 @@ def test_mapping_mistakes_are_named(project: Path, extra: str, error: type, text
 
 @pytest.mark.parametrize(
     "bad_path",
-    ["../../outside.csv", "/etc/passwd", "https://example.org/a.csv", "file:///etc/passwd", "~/a.csv"],
+    [
+        "../../outside.csv",
+        "/etc/passwd",
+        "https://example.org/a.csv",
+        "file:///etc/passwd",
+        "~/a.csv",
+    ],
 )
 def test_paths_outside_the_project_are_refused(project: Path, bad_path: str) -> None:
     path = project / "mappings" / "a.yaml"
@@ -120,7 +126,9 @@ def test_missing_project_file(tmp_path: Path) -> None:
 
 def test_long_layout_needs_columns(project: Path) -> None:
     path = project / "mappings" / "a.yaml"
-    path.write_text("source: a\npath: ../data/a.csv\nlevel: individual\nlayout: long\n", encoding="utf-8")
+    path.write_text(
+        "source: a\npath: ../data/a.csv\nlevel: individual\nlayout: long\n", encoding="utf-8"
+    )
     with pytest.raises(ConfigError, match="needs 'columns'"):
         load_mapping(path, project)
 

@@ -37,19 +37,29 @@ def cells_of(mapping: Mapping, limits: Limits | None = None) -> pd.DataFrame:
 
 
 def write_delimited(path: Path, sep: str, encoding: str = "utf-8") -> None:
-    quote = (lambda f: f'"{f}"') if sep == "," else (lambda f: f)  # a decimal comma must be quoted in a comma CSV
-    lines = [sep.join(["species", "id", "mass", "svl"])] + [sep.join(quote(f) for f in r) for r in ROWS]
+    quote = (
+        (lambda f: f'"{f}"') if sep == "," else (lambda f: f)
+    )  # a decimal comma must be quoted in a comma CSV
+    lines = [sep.join(["species", "id", "mass", "svl"])] + [
+        sep.join(quote(f) for f in r) for r in ROWS
+    ]
     path.write_bytes(("\n".join(lines) + "\n").encode(encoding))
 
 
 @pytest.mark.parametrize(
     ("name", "fmt", "sep", "encoding"),
-    [("t.csv", "csv", ";", "latin-1"), ("t.tsv", "tsv", "\t", "utf-8"), ("t.csv", "csv", ",", "utf-8")],
+    [
+        ("t.csv", "csv", ";", "latin-1"),
+        ("t.tsv", "tsv", "\t", "utf-8"),
+        ("t.csv", "csv", ",", "utf-8"),
+    ],
 )
 def test_delimited_wide_table_becomes_cells(tmp_path: Path, name, fmt, sep, encoding) -> None:
     path = tmp_path / name
     write_delimited(path, sep, encoding)
-    cells = cells_of(mapping_for(path, fmt, read=ReadOptions(delimiter=sep, decimal=",", encoding=encoding)))
+    cells = cells_of(
+        mapping_for(path, fmt, read=ReadOptions(delimiter=sep, decimal=",", encoding=encoding))
+    )
     # 2 rows x 2 trait columns (mass declared, svl unclaimed and so matched by name)
     assert len(cells) == 4
     mass = cells[cells["column"] == "mass"].sort_values("source_row")
@@ -61,7 +71,14 @@ def test_delimited_wide_table_becomes_cells(tmp_path: Path, name, fmt, sep, enco
 
 def test_parquet_numbers_become_text_cells(tmp_path: Path) -> None:
     path = tmp_path / "t.parquet"
-    table = pa.table({"species": ["Sorex minutus", None], "id": ["A1", "A2"], "mass": [4.1, None], "svl": [55, 70]})
+    table = pa.table(
+        {
+            "species": ["Sorex minutus", None],
+            "id": ["A1", "A2"],
+            "mass": [4.1, None],
+            "svl": [55, 70],
+        }
+    )
     pq.write_table(table, path)
     cells = cells_of(mapping_for(path, "parquet", read=ReadOptions()))
     mass = cells[cells["column"] == "mass"].sort_values("source_row")
@@ -71,7 +88,10 @@ def test_parquet_numbers_become_text_cells(tmp_path: Path) -> None:
 
 def test_long_table_keeps_rows(tmp_path: Path) -> None:
     path = tmp_path / "long.csv"
-    path.write_text("species,trait,value,unit\nSorex minutus,mass,4.1,g\nSorex minutus,SVL,55,mm\n", encoding="utf-8")
+    path.write_text(
+        "species,trait,value,unit\nSorex minutus,mass,4.1,g\nSorex minutus,SVL,55,mm\n",
+        encoding="utf-8",
+    )
     mapping = mapping_for(
         path, "csv", layout="long", traits=(), read=ReadOptions(), context={"taxon": "species"},
         columns=LongColumns(trait="trait", value="value", unit="unit"),
@@ -84,7 +104,9 @@ def test_long_table_keeps_rows(tmp_path: Path) -> None:
 
 def test_batches_number_rows_continuously(tmp_path: Path) -> None:
     path = tmp_path / "many.csv"
-    path.write_text("species,mass\n" + "".join(f"Sorex minutus,{i}\n" for i in range(25)), encoding="utf-8")
+    path.write_text(
+        "species,mass\n" + "".join(f"Sorex minutus,{i}\n" for i in range(25)), encoding="utf-8"
+    )
     mapping = mapping_for(path, "csv", read=ReadOptions(), context={"taxon": "species"})
     batches = list(iter_cells(mapping, Limits(batch_rows=10)))
     rows = pd.concat([b.cells for b in batches])["source_row"].tolist()

@@ -343,7 +343,15 @@ def test_normalise_summaries_orphan_dispersion_and_passthrough():
 
 def test_range_or_quartiles_alone_are_kept_not_orphaned():
     # a population described only by its range (common in field guides) is usable data
-    frame = pd.DataFrame({"min": [11.3, np.nan], "max": [12.9, np.nan], "q1": [np.nan, 2.0], "q3": [np.nan, 3.0], "n": 14})
+    frame = pd.DataFrame(
+        {
+            "min": [11.3, np.nan],
+            "max": [12.9, np.nan],
+            "q1": [np.nan, 2.0],
+            "q3": [np.nan, 3.0],
+            "n": 14,
+        }
+    )
     out = normalise_summaries(frame)
     assert out["reason"].isna().all()
     assert out["mean"].isna().all()  # nothing invented for the centre
