@@ -112,15 +112,20 @@ def text_tables(
 
 
 def first_ragged_row(
-    reopen: Callable[[], IO[bytes]], delimiter: str, quote: str, skip_rows: int, encoding: str
+    reopen: Callable[[], IO[bytes]],
+    delimiter: str,
+    quote: str,
+    skip_rows: int,
+    encoding: str,
+    width: int | None = None,
 ) -> int | None:
     """Only on the error path: the first data row (1 = the first after the skipped header
-    lines) whose field count differs from the first data row's, or None if none is found."""
+    rows) whose field count differs from `width` (default: the first data row's), or None if
+    none is found."""
     quoting = {"quotechar": quote} if quote else {"quoting": csv.QUOTE_NONE}
     try:  # Python's codecs know Arrow's 'utf8' too
         with reopen() as raw, io.TextIOWrapper(raw, encoding, errors="replace", newline="") as text:
             rows = csv.reader(text, delimiter=delimiter, **quoting)
-            width = None
             for number, fields in enumerate(rows, start=1 - skip_rows):
                 if number < 1 or not fields:
                     continue

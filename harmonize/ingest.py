@@ -222,9 +222,12 @@ class _KeptFrames:
 
     def _keep(self, frame: pd.DataFrame, keep_source: bool, keep_all: bool) -> None:
         if self._source is not None:
-            self._source = self._source + [frame] if keep_source else None
+            self._source = self._source if keep_source else None
         if self._all is not None:
-            self._all = self._all + [frame] if keep_all else None
+            self._all = self._all if keep_all else None
+        for kept in (self._source, self._all):
+            if kept is not None:
+                kept.append(frame)
 
     @property
     def source_rows(self) -> int:

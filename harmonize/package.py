@@ -305,12 +305,12 @@ def _csv_cells(series: pd.Series, kind: str) -> pa.Array:
 
 
 def _string_bytes(array: pa.Array) -> bytes:
-    """The characters of a string array laid end to end (its data buffer, from the first
-    offset to the last)."""
-    array = pa.concat_arrays([array]) if array.offset else array
-    offsets = np.frombuffer(array.buffers()[1], dtype=np.int32, count=len(array) + 1)
+    """The characters of a string array laid end to end: its data buffer from the first offset
+    to the last, copied once."""
+    offsets = np.frombuffer(array.buffers()[1], dtype=np.int32)
+    first, last = offsets[array.offset], offsets[array.offset + len(array)]
     data = array.buffers()[2]
-    return data.to_pybytes()[offsets[0] : offsets[-1]] if data is not None else b""
+    return data.slice(first, last - first).to_pybytes() if data is not None else b""
 
 
 def _arrow_table(frame: pd.DataFrame, resource: data_model.Resource, schema: pa.Schema) -> pa.Table:

@@ -33,6 +33,7 @@ from harmonize.cells import (  # noqa: F401 - re-exported: readers' callers use 
     trait_columns,
 )
 from harmonize.errors import ConfigError, SourceNotFoundError, SourceReadError
+from harmonize.foreign_text import first_ragged_row
 from harmonize.project import Limits, Mapping
 
 
@@ -109,20 +110,6 @@ def _parquet_header(mapping: Mapping) -> list[str]:
         raise SourceReadError(
             f"not a readable Parquet file ({error})", file=str(mapping.path)
         ) from None
-
-
-def _locate_bad_row(mapping: Mapping, width: int) -> int | None:
-    """Only on the error path: find the first data row whose field count differs from the header."""
-    try:
-        with open(
-            mapping.path, encoding=_encoding(mapping), newline="", errors="replace"
-        ) as handle:
-            for number, fields in enumerate(csv.reader(handle, delimiter=_delimiter(mapping))):
-                if number and len(fields) != width and fields:
-                    return number
-    except csv.Error:
-        return None
-    return None
 
 
 def _encoding_problem(mapping: Mapping, header: list[str]) -> SourceReadError:
@@ -220,7 +207,14 @@ def _read_delimited(mapping: Mapping, header: list[str], limits: Limits) -> Iter
     except pa.ArrowInvalid as error:
         text = str(error)
         if "Expected" in text and "columns" in text:
-            row = _locate_bad_row(mapping, len(header))
+            row = first_ragged_row(
+                lambda: open(mapping.path, "rb"),
+                _delimiter(mapping),
+                '"',
+                skip_rows=1,
+                encoding=_encoding(mapping),
+                width=len(header),
+            )
             raise SourceReadError(
                 f"row has a different number of fields than the header ({len(header)})",
                 file=str(mapping.path),
