@@ -174,6 +174,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         thousands=mapping.read.thousands,
         missing=mapping.read.missing,
         max_cell_chars=plan.max_cell_chars,
+        declared_in=mapping.read.declared_in,
     )
     empty = parsed.empty.copy()
     fate.open &= ~empty
@@ -554,6 +555,7 @@ def _measurement_temperature(
         cells["temperature_raw"],
         decimal=plan.mapping.read.decimal,
         missing=plan.mapping.read.missing,
+        declared_in=plan.mapping.read.declared_in,
     )
     celsius = parsed.value * conv.scale + conv.offset
     bad = ~np.isfinite(celsius)

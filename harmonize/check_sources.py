@@ -343,6 +343,7 @@ def check_table(
         decimal=spec.read.decimal,
         thousands=spec.read.thousands,
         missing=spec.read.missing,
+        declared_in=spec.read.declared_in,
     )
     number = np.isfinite(parsed.value) & pd.isna(parsed.reason)
     unit_text = cells["unit"].astype(object).where(cells["unit"].notna(), None)

@@ -64,6 +64,10 @@ TRAIT_KEYS = ("trait", "unit", "statistic", "role")
 LONG_KEYS = ("trait", "value", "unit", "statistic", "n")
 
 
+MAPPING_FILE = "mapping-file"
+COMMAND_LINE = "command-line"
+
+
 @dataclass(frozen=True)
 class ReadOptions:
     delimiter: str | None = None
@@ -72,6 +76,33 @@ class ReadOptions:
     encoding: str = "utf-8"
     missing: tuple[str, ...] = ("", "NA")
     resource: str | None = None  # the resource of a data package source
+    # Where the user declared these options, so hints name the fix in the user's own terms:
+    # MAPPING_FILE (keys of a mapping's `read:`) or COMMAND_LINE (options of `harmonize quick`).
+    declared_in: str = MAPPING_FILE
+
+    def declare(self, *options: tuple[str, str]) -> str:
+        """A hint's words for declaring one of `options` ((key, value) pairs)."""
+        return declare_read_options(self.declared_in, *options)
+
+    def spell(self, *options: tuple[str, str]) -> str:
+        """`options` as the user writes them, without a verb (see `spell_read_options`)."""
+        return spell_read_options(self.declared_in, *options)
+
+
+def spell_read_options(declared_in: str, *options: tuple[str, str]) -> str:
+    """Read options as their user writes them: "`decimal: ','` in the mapping's read options"
+    for a mapping file, "`--decimal ,`" on the command line; several are joined by 'or'."""
+    if declared_in == COMMAND_LINE:
+        return " or ".join(f"`--{key} {value}`" for key, value in options)
+    keys = " or ".join(f"`{key}: '{value}'`" for key, value in options)
+    return f"{keys} in the mapping's read options"
+
+
+def declare_read_options(declared_in: str, *options: tuple[str, str]) -> str:
+    """'declare `decimal: ','` in the mapping's read options' for a mapping file, 'use
+    `--decimal ,`' on the command line."""
+    verb = "use" if declared_in == COMMAND_LINE else "declare"
+    return f"{verb} {spell_read_options(declared_in, *options)}"
 
 
 @dataclass(frozen=True)

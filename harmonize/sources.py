@@ -92,7 +92,8 @@ def _delimited_header(mapping: Mapping) -> list[str]:
             f"header is not valid {mapping.read.encoding} text",
             file=str(mapping.path),
             row=0,
-            hint=f"declare the file's encoding in the mapping's read options ({error.reason})",
+            hint=f"declare the file's encoding, e.g. {mapping.read.spell(('encoding', 'latin-1'))} "
+            f"({error.reason})",
         ) from None
     except csv.Error as error:
         raise SourceReadError(
@@ -139,7 +140,7 @@ def _encoding_problem(mapping: Mapping, header: list[str]) -> SourceReadError:
             f"with one encoding (fix this cell) rather than declaring another encoding"
         )
     else:
-        hint = "declare the file's encoding in the mapping's read options, e.g. encoding: latin-1"
+        hint = f"declare the file's encoding, e.g. {mapping.read.spell(('encoding', 'latin-1'))}"
     what = f"byte {bad} is" if bad else "text is"
     return SourceReadError(
         f"{what} not valid {declared}", file=str(mapping.path), row=row, column=column, hint=hint

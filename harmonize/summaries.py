@@ -136,7 +136,10 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
     n_text = numbers["n_raw"].astype(object).where(numbers["n_raw"].notna(), None)
     n_text = n_text.map(lambda v: _N_PREFIX.sub("", v) if isinstance(v, str) else v)
     n_parsed = values.parse_numbers(
-        n_text, decimal=mapping.read.decimal, missing=mapping.read.missing
+        n_text,
+        decimal=mapping.read.decimal,
+        missing=mapping.read.missing,
+        declared_in=mapping.read.declared_in,
     )
     by_group = numbers["group"]
     n_context = pd.Series(n_parsed.value, index=numbers.index).groupby(by_group).first()

@@ -22,6 +22,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from harmonize.errors import ConfigError, RejectReason
+from harmonize.mapping_file import COMMAND_LINE, MAPPING_FILE, declare_read_options
 
 __all__ = ["ParsedValues", "parse_numbers", "parse_categories"]
 
@@ -73,9 +74,15 @@ class _NumberSyntax:
     unsigned: str
     decimal: str
     thousands: str | None
+    declared_in: str  # where the read options were declared: hints name the fix there
+
+    def declare(self, *options: tuple[str, str]) -> str:
+        return declare_read_options(self.declared_in, *options)
 
 
-def _number_syntax(decimal: str, thousands: str | None) -> _NumberSyntax:
+def _number_syntax(
+    decimal: str, thousands: str | None, declared_in: str = MAPPING_FILE
+) -> _NumberSyntax:
     if decimal not in DECIMAL_MARKS:
         raise ConfigError(
             f"decimal mark {decimal!r} is not supported",
@@ -92,14 +99,16 @@ def _number_syntax(decimal: str, thousands: str | None) -> _NumberSyntax:
         if thousands == decimal:
             raise ConfigError(
                 f"decimal mark and thousands separator are both {decimal!r}",
-                hint="declare different characters in the mapping's read options",
+                hint="give --decimal and --thousands different characters"
+                if declared_in == COMMAND_LINE
+                else "declare different characters in the mapping's read options",
             )
     # Character classes avoid escaping rules that differ between regex engines.
     mark = f"[{decimal}]"
     integer = r"\d+" if thousands is None else rf"(?:\d{{1,3}}(?:[{thousands}]\d{{3}})+|\d+)"
     unsigned = rf"(?:{integer}(?:{mark}\d*)?|{mark}\d+)(?:[eE][+-]?\d+)?"
     plain = rf"[+-]?(?:\d+(?:{mark}\d*)?|{mark}\d+)(?:[eE][+-]?\d+)?"
-    return _NumberSyntax(plain, rf"[+-]?{unsigned}", unsigned, decimal, thousands)
+    return _NumberSyntax(plain, rf"[+-]?{unsigned}", unsigned, decimal, thousands, declared_in)
 
 
 def _as_arrow(raw: pd.Series | pa.Array | pa.ChunkedArray | Sequence[str | None]) -> pa.Array:
@@ -197,16 +206,18 @@ def parse_numbers(
     thousands: str | None = None,
     missing: Collection[str] = (),
     max_cell_chars: int = 256,
+    declared_in: str = MAPPING_FILE,
 ) -> ParsedValues:
     """Parse a column of raw cells into numbers, vectorised over the whole column.
 
     `decimal` and `thousands` come from the mapping's read options; `missing` lists tokens that
     mean "no value" (compared after trimming whitespace). Raises ConfigError for unsupported
-    options; problems in cells come back in `reason` and `message`. Columns already typed as
+    options; problems in cells come back in `reason` and `message`, whose hints name read options
+    as they were declared (`declared_in`: a mapping file or the command line). Columns already typed as
     numbers skip the text patterns; object columns mixing numbers and text are read as text,
     numbers written as Python writes them (decimal point).
     """
-    syntax = _number_syntax(decimal, thousands)
+    syntax = _number_syntax(decimal, thousands, declared_in)
     arr = _as_arrow(raw)
     if pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type):
         return _parse_numeric(arr)
@@ -387,12 +398,10 @@ def _fill_messages(
         if syntax.thousands == ",":
             hint = (
                 " does not fit the declared thousands separator ',' (groups of three digits): "
-                "if the comma is a decimal comma, declare `decimal: ','` in the mapping's read options"
+                "if the comma is a decimal comma, " + syntax.declare(("decimal", ","))
             )
         else:
-            hint = (
-                " looks like a decimal comma: declare `decimal: ','` in the mapping's read options"
-            )
+            hint = " looks like a decimal comma: " + syntax.declare(("decimal", ","))
     else:
         other_mark = pc.match_substring_regex(
             text, rf"{lead}[+-]?\d*\.\d+(?:[eE][+-]?\d+)?{unit_tail}"
@@ -400,12 +409,12 @@ def _fill_messages(
         if syntax.thousands == ".":
             hint = (
                 " does not fit the declared thousands separator '.' (groups of three digits): "
-                "if the point is a decimal point, declare `decimal: '.'` in the mapping's read options"
+                "if the point is a decimal point, " + syntax.declare(("decimal", "."))
             )
         else:
             hint = (
-                " has a decimal point but the mapping declares `decimal: ','`: fix the cell, "
-                "or declare `decimal: '.'` (or `thousands: '.'`) in the mapping's read options"
+                " has a decimal point but the declared decimal mark is ',': fix the cell, or "
+                + syntax.declare(("decimal", "."), ("thousands", "."))
             )
     other_mark = pc.fill_null(other_mark, False).to_numpy(zero_copy_only=False)
     if syntax.thousands is None:
@@ -422,16 +431,16 @@ def _fill_messages(
             np.flatnonzero(grouped & ~other_mark),
             shown,
             "",
-            f" looks like '{group}' between groups of thousands: declare `thousands: '{group}'` "
-            "in the mapping's read options",
+            f" looks like '{group}' between groups of thousands: "
+            + syntax.declare(("thousands", group)),
         )
         _messages(  # '1.234' with decimal ',': a decimal point or a thousands separator
             message,
             np.flatnonzero(grouped & other_mark),
             shown,
             "",
-            f" has a '{group}' that is either a decimal mark or a thousands separator: declare "
-            f"`decimal: '{group}'` or `thousands: '{group}'` in the mapping's read options",
+            f" has a '{group}' that is either a decimal mark or a thousands separator: "
+            + syntax.declare(("decimal", group), ("thousands", group)),
         )
         not_a_number = not_a_number & ~grouped
     _messages(message, np.flatnonzero(not_a_number & other_mark), shown, "", hint)

@@ -233,3 +233,28 @@ def test_installed_console_script_runs() -> None:
         timeout=120,
     )
     assert module.returncode == 0 and "critical_thermal_maximum" in module.stdout
+
+
+def test_quick_mode_hints_name_its_own_options(tmp_path: Path, capsys) -> None:
+    # Quick mode has no mapping file: a reject's hint names the command-line option that fixes
+    # it, where a mapping's hint names the key of its `read:` section (see test_values).
+    _, rejects = quick(
+        tmp_path / "sheet.csv",
+        'species,SVL (mm),Body mass (g)\nPodarcis muralis,"55,2",4.1\n'
+        'Podarcis muralis,61.0,"1,234"\n',
+        ["--taxon", "species"],
+        capsys,
+    )
+    messages = dict(zip(rejects["column"], rejects["message"], strict=True))
+    assert "use `--decimal ,`" in messages["SVL (mm)"]
+    # '1,234' is either 1.234 or 1234: both options are named
+    assert "use `--decimal ,` or `--thousands ,`" in messages["Body mass (g)"]
+    assert not any("mapping" in m for m in messages.values())
+
+
+def test_quick_mode_encoding_error_names_the_encoding_option(tmp_path: Path, capsys) -> None:
+    table = tmp_path / "sheet.csv"
+    table.write_bytes("species,SVL (mm)\nLacerta v\xe4lida,55\n".encode("latin-1"))
+    code, _, err = run(["quick", str(table), "--taxon", "species", "-q"], capsys)
+    assert code == 3, err
+    assert "`--encoding latin-1`" in err and "mapping" not in err

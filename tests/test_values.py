@@ -21,6 +21,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from harmonize.errors import ConfigError, RejectReason
+from harmonize.mapping_file import COMMAND_LINE, MAPPING_FILE
 from harmonize.values import parse_categories, parse_numbers
 
 # (cell, decimal, thousands, value, qualifier, unit_in_cell)
@@ -297,3 +298,16 @@ def test_underflow_is_not_silently_zero():
     assert parsed.value[1] == 0 and parsed.reason[1] is None  # a real zero stays zero
     assert parsed.value[2] == 0 and parsed.reason[2] is None
     assert parsed.reason[3] == RejectReason.NON_FINITE
+
+
+@pytest.mark.parametrize(
+    ("declared_in", "words"),
+    [
+        (MAPPING_FILE, "declare `decimal: ','` in the mapping's read options"),
+        (COMMAND_LINE, "use `--decimal ,`"),
+    ],
+)
+def test_hints_name_read_options_where_they_were_declared(declared_in: str, words: str) -> None:
+    parsed = parse_numbers(["12,5"], declared_in=declared_in)
+    assert parsed.reason[0] == RejectReason.NOT_A_NUMBER
+    assert parsed.message[0].endswith(words), parsed.message[0]

@@ -11,6 +11,7 @@ from typing import Any
 import click
 
 from harmonize.errors import ConfigError
+from harmonize.mapping_file import COMMAND_LINE
 from harmonize.project import ReadOptions
 
 
@@ -46,6 +47,7 @@ def make_read_options(
         thousands=thousands,
         encoding=encoding,
         missing=tuple(missing) if missing else ("", "NA"),
+        declared_in=COMMAND_LINE,
     )
 
 
