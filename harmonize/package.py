@@ -16,6 +16,7 @@ Nothing records wall-clock time unless `PackageInfo.created` is given.
 
 from __future__ import annotations
 
+import base64
 import hashlib
 import json
 import re
@@ -122,7 +123,8 @@ def prepare_table(table: pa.Table, resource: data_model.Resource) -> pa.Table:
     their Arrow types (dates still as text: the writer parses them), empty strings missing.
 
     A text column given as a dictionary array (codes into texts) stays one: checks work once
-    per text, and the writer decodes it on its own thread (`ResourceWriter`)."""
+    per text, and the writer (`ResourceWriter`) decodes it on its own thread, or takes its
+    dictionary as it is for a coded column."""
     extra = set(table.column_names) - set(resource.column_names)
     if extra:
         raise ValueError(f"{resource.name}: unexpected columns {sorted(extra)}")
@@ -350,7 +352,7 @@ def _parse_dates(strings: pa.Array, resource: data_model.Resource, name: str) ->
 
 def _with_dates(table: pa.Table, resource: data_model.Resource) -> pa.Table:
     """A prepared table with its date columns parsed from their text (text columns may still
-    be dictionary arrays: the writer's thread decodes them)."""
+    be dictionary arrays: the writer's thread decodes them, or keeps coded columns coded)."""
     arrays = [
         _parse_dates(table[c.name], resource, c.name) if c.type == "date" else table[c.name]
         for c in resource.columns
@@ -362,6 +364,55 @@ def arrow_schema(resource: data_model.Resource) -> pa.Schema:
     """The Parquet schema of a resource. Every field is nullable: a required column with a
     missing cell must still be written, so that validation can report the row."""
     return pa.schema([pa.field(c.name, _ARROW_TYPES[c.type]) for c in resource.columns])
+
+
+_CODED_TEXT = pa.dictionary(pa.int32(), pa.string())
+
+
+def _written_schema(resource: data_model.Resource) -> pa.Schema:
+    """The schema handed to the Parquet writer: `arrow_schema` with coded text columns as
+    dictionaries (the file stores `arrow_schema` for readers, see ResourceWriter.close)."""
+    return pa.schema(
+        [
+            pa.field(
+                c.name, _CODED_TEXT if c.coded and c.type == "string" else _ARROW_TYPES[c.type]
+            )
+            for c in resource.columns
+        ]
+    )
+
+
+def _coded_text(chunks: list[pa.Array]) -> pa.DictionaryArray:
+    """A row group's chunks of a coded text column as one dictionary array that holds exactly
+    the texts used, in order of first use. That is the dictionary the Parquet writer builds when
+    it hashes the decoded text, so it writes the same bytes (tests/test_package.py) without
+    hashing every cell. Chunks that are not dictionaries are encoded here instead."""
+    if not chunks or not all(pa.types.is_dictionary(c.type) for c in chunks):
+        text = [c.cast(pa.string()) for c in chunks]
+        return pc.dictionary_encode(pa.concat_arrays(text) if text else pa.array([], pa.string()))
+    position: dict[str, int] = {}  # text -> code in the joined dictionary, in order of first use
+    renumbered = []
+    for chunk in chunks:
+        codes = chunk.indices
+        used = pc.unique(codes).drop_null()  # in order of first use
+        new_code = np.full(len(chunk.dictionary), -1, dtype=np.int32)  # -1: a missing text
+        for code, text in zip(
+            used.to_numpy(zero_copy_only=False),
+            chunk.dictionary.take(used).to_pylist(),
+            strict=True,
+        ):
+            if text is not None:  # the same text under two codes gets one code
+                new_code[code] = position.setdefault(text, len(position))
+        recoded = new_code[pc.fill_null(codes, 0).to_numpy(zero_copy_only=False)]
+        if codes.null_count:
+            recoded[codes.is_null().to_numpy(zero_copy_only=False)] = -1
+        renumbered.append(recoded)
+    joined = np.concatenate(renumbered)
+    missing = joined < 0
+    return pa.DictionaryArray.from_arrays(
+        pa.array(joined, type=pa.int32(), mask=missing if missing.any() else None),
+        pa.array(list(position), type=pa.string()),
+    )
 
 
 class ResourceWriter:
@@ -395,6 +446,7 @@ class ResourceWriter:
         self._pending: list[pa.Table] = []
         self._pending_rows = 0
         self._schema = arrow_schema(resource)
+        self._written = _written_schema(resource)
         if fmt == "csv":
             self._stream = open(self.path, "wb")  # noqa: SIM115 - closed in close()
             self._emit(_csv_text(self.resource.empty_frame(), resource, header=True))
@@ -405,7 +457,9 @@ class ResourceWriter:
             self._pending_groups: list[Future] = []
             self._parquet = pq.ParquetWriter(
                 self.path,
-                self._schema,
+                self._written,
+                # readers get `arrow_schema` (text, not dictionaries): stored in close()
+                store_schema=False,
                 compression="zstd",
                 compression_level=1,
                 write_statistics=True,
@@ -473,11 +527,15 @@ class ResourceWriter:
 
     def _encode(self, pieces: list[pa.Table]) -> None:
         """Write one row group (on the encoder's thread): its pieces joined into one array per
-        column, in the written types (text dictionaries decoded), so the bytes do not depend
-        on how rows were batched; then encoded and compressed."""
+        column, in the written types (text dictionaries decoded, coded columns as `_coded_text`
+        gives them), so the bytes do not depend on how rows were batched; then encoded and
+        compressed."""
         columns = []
-        for at, field in enumerate(self._schema):
+        for at, field in enumerate(self._written):
             chunks = [chunk for piece in pieces for chunk in piece.column(at).chunks]
+            if field.type == _CODED_TEXT:
+                columns.append(_coded_text(chunks))
+                continue
             columns.append(
                 pa.concat_arrays(
                     [c if c.type == field.type else c.cast(field.type) for c in chunks]
@@ -485,7 +543,7 @@ class ResourceWriter:
                 if chunks
                 else pa.array([], type=field.type)
             )
-        self._parquet.write_table(pa.Table.from_arrays(columns, schema=self._schema))
+        self._parquet.write_table(pa.Table.from_arrays(columns, schema=self._written))
 
     def _drain(self) -> None:
         try:
@@ -503,6 +561,9 @@ class ResourceWriter:
             )
         self._flush(final=True)
         self._drain()
+        # what the writer stores with store_schema=True, for the text types readers should get
+        stored = base64.b64encode(self._schema.serialize().to_pybytes()).decode("ascii")
+        self._parquet.add_key_value_metadata({"ARROW:schema": stored})
         self._parquet.close()
         # No `bytes`/`hash` for Parquet: frictionless cannot check them (ECOSYSTEM-NOTES §1).
         return WrittenFile(self.name, "parquet", "application/vnd.apache.parquet", 0, "", self.rows)

@@ -21,6 +21,9 @@ class Column:
     description: str
     required: bool = False
     enum: tuple[str, ...] = ()
+    # Text from a small closed set (vocabulary ids, units, roles, methods, flags): the build
+    # carries it coded, and the Parquet writer takes its dictionary as it is (package.py).
+    coded: bool = False
 
 
 @dataclass(frozen=True)
@@ -75,6 +78,7 @@ _CONTEXT = (
         "taxon_qualifier",
         "string",
         "Open-nomenclature qualifier kept from the name (cf., aff., sp.).",
+        coded=True,
     ),
     Column("sex", "string", "Sex as given."),
     Column("life_stage", "string", "Life stage as given."),
@@ -82,16 +86,28 @@ _CONTEXT = (
     Column("date", "string", "Date of the record as given."),
 )
 _TRAIT = (
-    Column("trait_id", "string", "Vocabulary id of the trait (see `traits`).", required=True),
+    Column(
+        "trait_id",
+        "string",
+        "Vocabulary id of the trait (see `traits`).",
+        required=True,
+        coded=True,
+    ),
     Column(
         "role",
         "string",
         "Role of the trait in an energy/mass-budget model for this source.",
         required=True,
         enum=ROLES,
+        coded=True,
     ),
-    Column("unit", "string", "Canonical unit of the trait (pint text); empty for categories."),
-    Column("ucum", "string", "The canonical unit as a UCUM code."),
+    Column(
+        "unit",
+        "string",
+        "Canonical unit of the trait (pint text); empty for categories.",
+        coded=True,
+    ),
+    Column("ucum", "string", "The canonical unit as a UCUM code.", coded=True),
 )
 _ORIGINAL = (
     Column(
@@ -100,12 +116,18 @@ _ORIGINAL = (
         "Trait name or column header as written in the source.",
         required=True,
     ),
-    Column("original_unit", "string", "Unit as written in the source (mapping, cell or header)."),
+    Column(
+        "original_unit",
+        "string",
+        "Unit as written in the source (mapping, cell or header).",
+        coded=True,
+    ),
     Column(
         "unit_origin",
         "string",
         "Where the source unit came from.",
         enum=("mapping", "cell", "name-hint", "none"),
+        coded=True,
     ),
     Column(
         "match_method",
@@ -113,6 +135,7 @@ _ORIGINAL = (
         "How the trait name was matched.",
         required=True,
         enum=MATCH_METHODS,
+        coded=True,
     ),
     Column(
         "match_score", "number", "Match score 0-100 (100 for exact, synonym, declared and manual)."
@@ -136,6 +159,7 @@ _FLAGS = (
         "string",
         "Semicolon-separated warnings a reviewer should see (e.g. outside-plausible-range, qualifier:<, "
         "unit-alias:C->degC, sd-estimated). Flags never change the value.",
+        coded=True,
     ),
 )
 

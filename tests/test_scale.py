@@ -405,6 +405,54 @@ def test_parquet_bytes_do_not_depend_on_how_values_arrive(tmp_path):
     assert pq.read_table(tmp_path / "individual_values.parquet")["record_id"].to_pylist() == ids
 
 
+def test_coded_text_is_written_as_its_decoded_text_would_be(tmp_path):
+    # Coded columns (trait ids, units, roles, methods, flags) reach the Parquet writer as their
+    # dictionaries instead of being decoded and hashed again. The file must be the one the
+    # decoded text gives: pieces with their own dictionaries, codes of a missing text, a text
+    # under two codes, unused texts and missing codes included. Readers get text columns.
+    rows = 3_000
+    units = ["g", "mm", None, "g", "degC", "unused"]  # 'g' twice; a missing text
+    codes = [(i * 7) % 5 for i in range(rows)]  # never code 5 ('unused')
+    texts = [units[c] for c in codes]
+    texts[10] = None
+    coded = pa.DictionaryArray.from_arrays(
+        pa.array([None if i == 10 else c for i, c in enumerate(codes)], pa.int32()), units
+    )
+    other = pc.dictionary_encode(pa.array(list(reversed(texts))))  # another dictionary order
+
+    def frame(unit, role) -> pa.Table:
+        return prepare_table(
+            pa.table(
+                {
+                    "record_id": [f"r{i}" for i in range(rows)],
+                    "source_id": ["s"] * rows,
+                    "source_row": list(range(1, rows + 1)),
+                    "unit": unit,
+                    "original_unit": unit,
+                    "role": role,
+                }
+            ),
+            tables.INDIVIDUAL_VALUES,
+        )
+
+    roles = ["parameter", "forcing"] * (rows // 2)
+    as_coded = [frame(coded, pc.dictionary_encode(pa.array(roles))), frame(other, roles)]
+    as_text = [frame(pa.array(texts), roles), frame(pa.array(list(reversed(texts))), roles)]
+    written = {}
+    for name, parts in (("coded", as_coded), ("text", as_text)):
+        writer = ResourceWriter(tables.INDIVIDUAL_VALUES, tmp_path, "parquet")
+        for part in parts:
+            for start in range(0, rows, 1_000):  # several pieces per row group
+                writer.write(part.slice(start, 1_000))
+        writer.close()
+        written[name] = (tmp_path / "individual_values.parquet").read_bytes()
+    assert written["coded"] == written["text"]
+    back = pq.read_table(tmp_path / "individual_values.parquet")
+    assert back.schema.field("unit").type == pa.string()
+    expected = [None if t in ("", None) else t for t in texts]
+    assert back["unit"].to_pylist() == expected + list(reversed(expected))
+
+
 @pytest.mark.parametrize("fmt", ["csv", "parquet"])
 def test_in_memory_tables_are_written_in_slices(demo_frames, tmp_path, monkeypatch, fmt):
     # 20 million rejects written whole failed ("input array too large": one text column over
