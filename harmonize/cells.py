@@ -68,12 +68,13 @@ def _clean_text(values: pd.Series, missing: set[str] | None = None) -> pd.Series
         text = pa.array(values, from_pandas=True)
         if isinstance(text, pa.ChunkedArray):
             text = text.combine_chunks()
-        text = pc.utf8_trim_whitespace(text.cast(pa.string()))
-        blank = pc.equal(text, "")
-        if missing:
-            blank = pc.or_(blank, pc.is_in(text, value_set=pa.array(sorted(missing), pa.string())))
-        cleaned = pc.if_else(blank, pa.scalar(None, pa.string()), text)
-        return pa.table({"text": cleaned}).to_pandas()["text"]  # wraps the Arrow text
+        # in the text type as read (pandas keeps large_string): no copy for a cast
+        text = pc.utf8_trim_whitespace(text)
+        tokens = pa.array(sorted({"", *(missing or ())}), text.type)
+        blank = pc.is_in(text, value_set=tokens)
+        if pc.any(blank).as_py():
+            text = pc.if_else(blank, pa.scalar(None, text.type), text)
+        return pa.table({"text": text}).to_pandas()["text"]  # wraps the Arrow text
     # Python objects (numbers among text, as some readers hand them over): once per distinct
     return Coded.of(values).cleaned(frozenset(missing or ()))
 

@@ -162,9 +162,11 @@ def _normalise_text(text: pa.Array) -> pa.Array:
     return pc.utf8_trim_whitespace(text)
 
 
-def _to_float(number_text: pa.Array, syntax: _NumberSyntax) -> np.ndarray:
-    """Matched number text to float64; rows that did not match (null or '') stay NaN."""
-    number_text = pc.if_else(pc.equal(number_text, ""), None, number_text)
+def _to_float(number_text: pa.Array, syntax: _NumberSyntax, *, blanks: bool = True) -> np.ndarray:
+    """Matched number text to float64; rows that did not match (null or '', unless `blanks`
+    is False: none is '') stay NaN."""
+    if blanks:
+        number_text = pc.if_else(pc.equal(number_text, ""), None, number_text)
     if syntax.thousands is not None:
         number_text = pc.replace_substring(number_text, syntax.thousands, "")
     if syntax.decimal != ".":
@@ -230,16 +232,20 @@ def parse_numbers(
     lengths = pc.utf8_length(arr).to_numpy(zero_copy_only=False)
     too_large = ~is_null & (np.nan_to_num(lengths, nan=0) > max_cell_chars)
     # Blank out oversized cells so no pattern runs over them.
-    shown = pc.utf8_trim_whitespace(pc.if_else(pa.array(too_large), None, arr))
+    shown = pc.utf8_trim_whitespace(
+        pc.if_else(pa.array(too_large), None, arr) if too_large.any() else arr
+    )
 
     # Most cells are plain numbers: one cheap pattern settles them, and only the rest (text,
     # qualifiers, ranges, units, declared missing tokens) goes through the detailed patterns.
     plain = pc.match_substring_regex(shown, f"^{syntax.plain}$")
-    plain = pc.and_kleene(plain, pc.invert(pc.is_in(shown, value_set=missing_tokens)))
+    if pc.any(pc.match_substring_regex(missing_tokens, f"^{syntax.plain}$")).as_py():
+        # a missing-value token that reads as a number ('-999') is not a value
+        plain = pc.and_kleene(plain, pc.invert(pc.is_in(shown, value_set=missing_tokens)))
     plain = pc.fill_null(plain, False).to_numpy(zero_copy_only=False)
     value = np.full(n, np.nan)
     plain_rows = np.flatnonzero(plain)
-    value[plain_rows] = _to_float(shown.take(pa.array(plain_rows)), syntax)
+    value[plain_rows] = _to_float(shown.take(pa.array(plain_rows)), syntax, blanks=False)
     plain[plain_rows[np.isinf(value[plain_rows])]] = False  # overflow gets its reason below
     value[~plain] = np.nan
 

@@ -311,3 +311,15 @@ def test_hints_name_read_options_where_they_were_declared(declared_in: str, word
     parsed = parse_numbers(["12,5"], declared_in=declared_in)
     assert parsed.reason[0] == RejectReason.NOT_A_NUMBER
     assert parsed.message[0].endswith(words), parsed.message[0]
+
+
+def test_a_missing_token_that_reads_as_a_number_is_missing() -> None:
+    # Sentinels such as -999 for "not measured" are common practice in field data (no
+    # published source). Declared as missing, the token is no value; other numbers are, and
+    # the token is compared as text after trimming ('-999.0' is a number).
+    parsed = parse_numbers(["-999", " -999 ", "12.5", "-999.0"], missing=["-999"])
+    assert parsed.empty.tolist() == [True, True, False, False]
+    assert parsed.value[2:].tolist() == [12.5, -999.0]
+    assert all(r is None for r in parsed.reason)
+    plain = parse_numbers(["-999"], missing=["NA"])  # not declared: a value
+    assert plain.value.tolist() == [-999.0] and not plain.empty[0]
