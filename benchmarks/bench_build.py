@@ -2,13 +2,16 @@
 
 Run: `python benchmarks/bench_build.py ROWS [ROWS ...] [--folder DIR] [--sample N]`.
 For each size, one generated table (benchmarks/make_long_table.py, INVENTED data) is measured
-three ways, each in its own child process so peak memories do not mix (peak RSS from
+in separate child processes, so peak memories do not mix (peak RSS from
 `os.wait4`, wall time including interpreter start and imports):
 
 (a) the I/O floor: pyarrow reads the same Parquet file and writes it back (best of three);
 (b) `harmonize build PROJECT --full -q`, including its own validation;
 (c) a naive conversion, one `pint.Quantity(value, unit).to(canonical)` per row, on a sample of
-    N rows, extrapolated to the whole table.
+    N rows, extrapolated to the whole table;
+(e) for reference, the package floor: the floor's read with the package's values table (the
+    build's output, with its provenance columns) written instead of the input, scaled from
+    in-process timings of both. It is what the output's width alone costs, before any work.
 
 It prints the ratios the scale targets are stated in: build / floor (target <= 2), naive /
 build (target >= 50), peak memory (target < 1 GiB, and at most 1.5x the peak of the smallest
@@ -48,6 +51,25 @@ def _floor(table: Path, target: Path) -> None:
     import pyarrow.parquet as pq
 
     pq.write_table(pq.read_table(table), target, compression="zstd")
+
+
+def _package_floor(table: Path, values: Path, target: Path) -> None:
+    """The floor's read, then the package's values table written instead of the input: how
+    much of the time budget the package's wider rows (provenance columns) take by themselves.
+    Timed in this process, against the input floor timed the same way (best of three each)."""
+    import pyarrow.parquet as pq
+
+    package = pq.read_table(values)  # in memory before timing, as a build has its rows
+    timings = {}
+    for name, written in (("input", None), ("package", package)):
+        best = float("inf")
+        for _ in range(3):
+            start = time.perf_counter()
+            read = pq.read_table(table)
+            pq.write_table(read if written is None else written, target, compression="zstd")
+            best = min(best, time.perf_counter() - start)
+        timings[name] = best
+    print(json.dumps(timings))
 
 
 def _naive(table: Path, sample: int) -> None:
@@ -104,6 +126,12 @@ def measure(rows: int, folder: Path, sample: int, changes: bool = False) -> dict
         changes_s, changes_mib, _ = run_child(
             [sys.executable, "-m", "harmonize", "build", str(project), "--full", "-q", "--changes"]
         )
+    values = project / "out" / "package" / "individual_values.parquet"
+    _, _, out = run_child(
+        [*me, "--package-floor", str(table), str(values), str(project / "floor.parquet")]
+    )
+    timed = json.loads(out.strip().splitlines()[-1])
+    package_floor_s = floor_s * timed["package"] / timed["input"]
     _, naive_mib, out = run_child([*me, "--naive", str(table), str(sample)])
     naive = json.loads(out.strip().splitlines()[-1])
     naive_s = naive["seconds"] / naive["rows"] * rows
@@ -116,6 +144,8 @@ def measure(rows: int, folder: Path, sample: int, changes: bool = False) -> dict
         "naive_s_extrapolated": naive_s,
         "naive_rows_per_s": naive["rows"] / naive["seconds"],
         "build_over_floor": build_s / floor_s,
+        "package_floor_s": package_floor_s,
+        "package_floor_over_floor": package_floor_s / floor_s,
         "naive_over_build": naive_s / build_s,
         "build_with_changes_s": changes_s,
         "build_with_changes_mib": changes_mib,
@@ -130,9 +160,13 @@ def main() -> None:
     parser.add_argument("--changes", action="store_true", help="also time (d), see above")
     parser.add_argument("--floor", nargs=2, type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--naive", nargs=2, help=argparse.SUPPRESS)
+    parser.add_argument("--package-floor", nargs=3, type=Path, help=argparse.SUPPRESS)
     options = parser.parse_args()
     if options.floor:
         _floor(*options.floor)
+        return
+    if options.package_floor:
+        _package_floor(*options.package_floor)
         return
     if options.naive:
         _naive(Path(options.naive[0]), int(options.naive[1]))
@@ -149,6 +183,12 @@ def main() -> None:
             f"{r['rows']:>10} {r['floor_s']:>8.2f} {r['build_s']:>8.2f} "
             f"{r['build_over_floor']:>11.2f} {r['naive_s_extrapolated']:>17.0f} "
             f"{r['naive_over_build']:>11.0f} {r['floor_mib']:>9.0f} {r['build_mib']:>9.0f}"
+        )
+    for r in results:
+        print(
+            f"{r['rows']:>10} rows, package floor (the floor writing the package's values table "
+            f"instead of the input): {r['package_floor_s']:.2f} s, "
+            f"{r['package_floor_over_floor']:.2f}x the floor"
         )
     for r in results:
         if r["build_with_changes_s"] is not None:
