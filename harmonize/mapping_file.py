@@ -80,10 +80,6 @@ class ReadOptions:
     # MAPPING_FILE (keys of a mapping's `read:`) or COMMAND_LINE (options of `harmonize quick`).
     declared_in: str = MAPPING_FILE
 
-    def declare(self, *options: tuple[str, str]) -> str:
-        """A hint's words for declaring one of `options` ((key, value) pairs)."""
-        return declare_read_options(self.declared_in, *options)
-
     def spell(self, *options: tuple[str, str]) -> str:
         """`options` as the user writes them, without a verb (see `spell_read_options`)."""
         return spell_read_options(self.declared_in, *options)

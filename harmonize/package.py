@@ -385,7 +385,7 @@ def _written_schema(resource: data_model.Resource) -> pa.Schema:
 def _coded_text(chunks: list[pa.Array]) -> pa.DictionaryArray:
     """A row group's chunks of a coded text column as one dictionary array that holds exactly
     the texts used, in order of first use. That is the dictionary the Parquet writer builds when
-    it hashes the decoded text, so it writes the same bytes (tests/test_package.py) without
+    it hashes the decoded text, so it writes the same bytes (tests/test_scale.py) without
     hashing every cell. Chunks that are not dictionaries are encoded here instead."""
     if not chunks or not all(pa.types.is_dictionary(c.type) for c in chunks):
         text = [c.cast(pa.string()) for c in chunks]

@@ -163,8 +163,8 @@ def _normalise_text(text: pa.Array) -> pa.Array:
 
 
 def _to_float(number_text: pa.Array, syntax: _NumberSyntax, *, blanks: bool = True) -> np.ndarray:
-    """Matched number text to float64; rows that did not match (null or '', unless `blanks`
-    is False: none is '') stay NaN."""
+    """Matched number text to float64. Null stays NaN, and so does '' (a row the pattern did
+    not match) unless `blanks` is False: the caller passes no '' then, and a pass is saved."""
     if blanks:
         number_text = pc.if_else(pc.equal(number_text, ""), None, number_text)
     if syntax.thousands is not None:
@@ -214,10 +214,10 @@ def parse_numbers(
 
     `decimal` and `thousands` come from the mapping's read options; `missing` lists tokens that
     mean "no value" (compared after trimming whitespace). Raises ConfigError for unsupported
-    options; problems in cells come back in `reason` and `message`, whose hints name read options
-    as they were declared (`declared_in`: a mapping file or the command line). Columns already typed as
-    numbers skip the text patterns; object columns mixing numbers and text are read as text,
-    numbers written as Python writes them (decimal point).
+    options; problems in cells come back in `reason` and `message`, whose hints name read
+    options as they were declared (`declared_in`: a mapping file or the command line). Columns
+    already typed as numbers skip the text patterns; object columns mixing numbers and text are
+    read as text, numbers written as Python writes them (decimal point).
     """
     syntax = _number_syntax(decimal, thousands, declared_in)
     arr = _as_arrow(raw)
