@@ -371,7 +371,7 @@ def _resource(mapping: Mapping) -> _Resource:
     if descriptor_file.name != DESCRIPTOR_NAME:
         raise ConfigError(
             f"a data package source must point at its {DESCRIPTOR_NAME}",
-            file=str(mapping.mapping_file),
+            file=mapping.declared_at,
         )
     folder = Path(os.path.realpath(descriptor_file.parent))
     check_paths(folder)  # URLs, absolute paths, '..' and links out of the folder are refused
@@ -388,7 +388,7 @@ def _resource(mapping: Mapping) -> _Resource:
             f"resource {wanted!r} is not in the package"
             if wanted
             else f"the package has {len(resources)} resources; name one",
-            file=str(mapping.mapping_file),
+            file=mapping.declared_at,
             hint=f"set read: {{resource: NAME}}, one of: {', '.join(names) or '(none)'}",
         )
     name = str(chosen.get("name", ""))

@@ -105,7 +105,7 @@ def check_declared_traits(mapping: Mapping, vocabulary: Vocabulary) -> None:
                 hint = None
             raise ConfigError(
                 f"trait '{trait_column.trait}' is not in the vocabulary",
-                file=str(mapping.mapping_file),
+                file=mapping.declared_at,
                 column=trait_column.column,
                 hint=hint,
             )

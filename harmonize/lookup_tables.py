@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from harmonize import units
+from harmonize.mapping_file import COMMAND_LINE, MAPPING_FILE
 from harmonize.match import NameMatch
 from harmonize.vocab import Vocabulary
 
@@ -23,12 +24,24 @@ if TYPE_CHECKING:
     from harmonize.assemble import SourcePlan
 
 
-def unmatched_message(name: str, match: NameMatch | None) -> str:
-    if match is None or match.trait_id is None:
-        return f"trait name '{name}' matches no vocabulary term; add a decision in the review sheet or declare `trait:` in the mapping"
+def unmatched_message(name: str, match: NameMatch | None, declared_in: str = MAPPING_FILE) -> str:
+    """Why a name's cells are rejected, and the fix where the source was declared: the review
+    sheet or the mapping file, or quick mode's --trait option (it has no review sheet)."""
+    guess = None if match is None else match.trait_id
+    if declared_in == COMMAND_LINE:
+        fix = (
+            f"name its trait with --trait COLUMN={guess or 'TRAIT_ID'} (a wide table's column), "
+            "or make a project with a mapping file to use the review sheet"
+        )
+    elif guess is None:
+        fix = "add a decision in the review sheet or declare `trait:` in the mapping"
+    else:
+        fix = "accept or reject it in the review sheet, or declare `trait:` in the mapping"
+    if guess is None:
+        return f"trait name '{name}' matches no vocabulary term; {fix}"
+    assert match is not None
     return (
-        f"trait name '{name}' needs review: best guess '{match.trait_id}' (score {match.score:.0f}); "
-        "accept or reject it in the review sheet, or declare `trait:` in the mapping"
+        f"trait name '{name}' needs review: best guess '{guess}' (score {match.score:.0f}); {fix}"
     )
 
 
@@ -41,7 +54,7 @@ def name_table(distinct: list[str], plan: SourcePlan) -> pd.DataFrame:
         if match is not None and match.status == "rejected":
             message = f"trait name '{name}' was rejected in the decisions file"
         else:
-            message = unmatched_message(name, match)
+            message = unmatched_message(name, match, plan.mapping.read.declared_in)
         rows.append(
             {
                 "trait_id": match.trait_id if accepted else None,

@@ -80,6 +80,10 @@ class ReadOptions:
     # MAPPING_FILE (keys of a mapping's `read:`) or COMMAND_LINE (options of `harmonize quick`).
     declared_in: str = MAPPING_FILE
 
+    def declare(self, *options: tuple[str, str]) -> str:
+        """A hint's words for declaring one of `options` ((key, value) pairs)."""
+        return declare_read_options(self.declared_in, *options)
+
     def spell(self, *options: tuple[str, str]) -> str:
         """`options` as the user writes them, without a verb (see `spell_read_options`)."""
         return spell_read_options(self.declared_in, *options)
@@ -148,6 +152,14 @@ class Mapping:
     ci_level: float = 0.95
     combine_groups: tuple[str, ...] = ()  # population sub-groups to pool (Cochrane Table 6.5.a)
     arrhenius_temperature: float | None = None  # K; overrides trait and project values
+
+    @property
+    def declared_at(self) -> str:
+        """Where messages say this mapping was declared: its file, or the command line (a table
+        given to a command without a mapping file, as in quick mode)."""
+        if self.read.declared_in == COMMAND_LINE:
+            return "command line"
+        return str(self.mapping_file)
 
     @property
     def decisions_file(self) -> Path:

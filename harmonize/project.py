@@ -31,6 +31,7 @@ from harmonize.config_files import (  # noqa: F401 - YAML_MAX_BYTES, parse_yaml 
 )
 from harmonize.errors import ConfigError, SourceNotFoundError, UnsafePathError
 from harmonize.mapping_file import (  # noqa: F401 - the mapping's names, re-exported
+    COMMAND_LINE,
     CONTEXT_KEYS,
     EXTENSION_FORMATS,
     FORMATS,
@@ -328,7 +329,7 @@ def single_file_project(
         format=fmt,
         level=level,
         layout=layout,
-        read=read or ReadOptions(),
+        read=read or ReadOptions(declared_in=COMMAND_LINE),
         citation="",
         context=dict(context or {}),
         temperature=temperature,

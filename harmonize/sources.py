@@ -92,8 +92,8 @@ def _delimited_header(mapping: Mapping) -> list[str]:
             f"header is not valid {mapping.read.encoding} text",
             file=str(mapping.path),
             row=0,
-            hint=f"declare the file's encoding, e.g. {mapping.read.spell(('encoding', 'latin-1'))} "
-            f"({error.reason})",
+            hint=f"{error.reason}; declare the file's encoding, e.g. "
+            f"{mapping.read.spell(('encoding', 'latin-1'))}",
         ) from None
     except csv.Error as error:
         raise SourceReadError(
@@ -356,7 +356,7 @@ def _require(mapping: Mapping, header: list[str], column: str, key: str) -> None
             # the whole header came back as one name: the file uses another delimiter
             hint = (
                 f"the header was read as one column; the file seems to use {other[0]!r}: "
-                f"declare `read: {{delimiter: {other[0]!r}}}` in the mapping"
+                + mapping.read.declare(("delimiter", other[0]))
             )
         elif close:
             hint = f"did you mean '{close[0]}'?"
@@ -364,7 +364,7 @@ def _require(mapping: Mapping, header: list[str], column: str, key: str) -> None
             hint = f"columns are: {', '.join(header[:12])}"
         raise ConfigError(
             f"declared column '{column}' ({key}) is not in {mapping.path.name}",
-            file=str(mapping.mapping_file),
+            file=mapping.declared_at,
             column=column,
             hint=hint,
         )

@@ -258,3 +258,20 @@ def test_quick_mode_encoding_error_names_the_encoding_option(tmp_path: Path, cap
     code, _, err = run(["quick", str(table), "--taxon", "species", "-q"], capsys)
     assert code == 3, err
     assert "`--encoding latin-1`" in err and "mapping" not in err
+
+
+def test_quick_mode_names_its_own_fixes_for_unknown_names_and_delimiters(tmp_path, capsys) -> None:
+    # Quick mode has neither a mapping file nor a review sheet: its messages point at its
+    # options, and a declaration error names the command line, not a mapping file.
+    table = tmp_path / "sheet.csv"
+    table.write_text("species;SVL (mm);zqx index\nPodarcis muralis;55;3\n", encoding="utf-8")
+    code, _, err = run(["quick", str(table), "--taxon", "species", "-q"], capsys)
+    assert code == 3
+    assert err.startswith("error: command line, column 'species'"), err
+    assert "use `--delimiter ;`" in err and ".yaml" not in err
+    code, out, _ = run(["quick", str(table), "--taxon", "species", "--delimiter", ";"], capsys)
+    assert code == 1  # built; one name waits
+    assert "--trait COLUMN=TRAIT_ID" in out and "review propose" not in out
+    rejects = pd.read_csv(tmp_path / "sheet-harmonized" / "rejects.csv")
+    (message,) = rejects.loc[rejects["reason"] == "unmatched-name", "message"]
+    assert "--trait COLUMN=" in message and "make a project with a mapping file" in message

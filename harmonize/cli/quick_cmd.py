@@ -143,6 +143,10 @@ def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, dat
         ci_level=ci_level,
     )
     report = build_project(project, progress=progress_printer(quiet))
-    for line in summary_lines(report):
+    # quick mode has no project, so no review sheet; --trait names a wide table's column's trait
+    hint = "make a project with a mapping file to use the review sheet"
+    if not columns:
+        hint = f"name their traits with --trait COLUMN=TRAIT_ID, or {hint}"
+    for line in summary_lines(report, review_hint=hint):
         click.echo(line)
     sys.exit(exit_code(report))

@@ -28,7 +28,11 @@ def _sd_origins(report: BuildReport) -> str:
     )
 
 
-def summary_lines(report: BuildReport) -> list[str]:
+REVIEW_HINT = "run `harmonize review propose`"
+
+
+def summary_lines(report: BuildReport, review_hint: str = REVIEW_HINT) -> list[str]:
+    """The build summary; `review_hint` says how to decide names waiting for review."""
     lines = [f"package: {report.output}", ""]
     rows = [
         [
@@ -65,7 +69,7 @@ def summary_lines(report: BuildReport) -> list[str]:
     if report.names_needing_review:
         lines += [
             "",
-            f"names needing review: {len(report.names_needing_review)} (run `harmonize review propose`)",
+            f"names needing review: {len(report.names_needing_review)} ({review_hint})",
         ]
         lines += [f"  {source}: {name}" for source, name in report.names_needing_review[:10]]
         if len(report.names_needing_review) > 10:
