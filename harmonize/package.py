@@ -23,6 +23,7 @@ import re
 from collections.abc import Callable, Mapping
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -31,6 +32,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from harmonize import tables as data_model
+from harmonize.csv_text import csv_text, small_text
 from harmonize.descriptor import (  # noqa: F401 - some are re-exported for callers
     MISSING_VALUES,
     PackageInfo,
@@ -256,88 +258,18 @@ _DICTIONARY_PAGE_BYTES = 65_536
 WRITE_SLICE_ROWS = PARQUET_ROW_GROUP_ROWS
 
 
-def _csv_text(frame: pd.DataFrame, resource: data_model.Resource, header: bool) -> bytes:
-    """Rows as CSV as `DataFrame.to_csv(index=False, lineterminator="\\n", na_rep="")` wrote
-    them (minimal quoting; floats in their shortest round-trip form), but built column-wise
-    with Arrow: pandas' writer formats cell by cell and took most of a CSV build of a million
-    values. A test holds the two equal; a lone carriage return is now quoted (RFC 4180)."""
-    columns = [_csv_cells(frame[c.name], c.type) for c in resource.columns]
-    lines = pc.binary_join_element_wise(*columns, ",") if len(frame) else None
-    text = ""
-    if header:
-        names = _csv_cells(pd.Series(resource.column_names, dtype=object), "string")
-        text = ",".join(names.to_pylist()) + "\n"
-    if lines is None:
-        return text.encode("utf-8")
-    body = pc.binary_join_element_wise(lines, "\n", "")
-    return text.encode("utf-8") + _string_bytes(body)
-
-
-def _csv_cells(series: pd.Series, kind: str) -> pa.Array:
-    """The text of each cell of one column as written in CSV (missing: empty). A cell is quoted
-    when it holds the delimiter, a quote or a line break (RFC 4180 section 2); Python's csv
-    module with '\\n' line ends left a lone '\\r' bare, which readers take for a line break:
-    that one case differs from what pandas wrote."""
-    if kind == "number":
-        values = np.asarray(series, dtype=float)
-        present = ~np.isnan(values)
-        # numpy writes a double's shortest round-trip form, as repr() and pandas do; only the
-        # present cells are formatted (several number columns are mostly empty)
-        text = pa.nulls(len(values), pa.string())
-        if present.any():
-            formatted = pa.array(values[present].astype(str), type=pa.string())
-            text = pc.replace_with_mask(text, pa.array(present), formatted)
-    elif kind == "boolean":
-        # Lower-case literals are the Table Schema default trueValues/falseValues everywhere.
-        flags = pa.array(series, type=pa.bool_(), from_pandas=True)
-        text = pc.if_else(flags, "true", "false")
-    elif kind == "integer":
-        text = pa.array(series, type=pa.int64(), from_pandas=True).cast(pa.string())
-    else:
-        text = _small_text(pa.array(series, from_pandas=True))
-        needs = pc.or_(
-            pc.or_(pc.match_substring(text, ","), pc.match_substring(text, '"')),
-            pc.or_(pc.match_substring(text, "\r"), pc.match_substring(text, "\n")),
-        )  # plain substring searches: a regular expression per cell took most of the time
-        if pc.any(needs).as_py():
-            quoted = pc.replace_substring(text, '"', '""')
-            quoted = pc.binary_join_element_wise('"', quoted, '"', "")
-            text = pc.if_else(needs, quoted, text)
-    return pc.fill_null(text, "")
-
-
-def _string_bytes(array: pa.Array) -> bytes:
-    """The characters of a string array laid end to end: its data buffer from the first offset
-    to the last, copied once."""
-    offsets = np.frombuffer(array.buffers()[1], dtype=np.int32)
-    first, last = offsets[array.offset], offsets[array.offset + len(array)]
-    data = array.buffers()[2]
-    return data.slice(first, last - first).to_pybytes() if data is not None else b""
-
-
 def _arrow_table(frame: pd.DataFrame, resource: data_model.Resource, schema: pa.Schema) -> pa.Table:
     arrays = []
     for column in resource.columns:
         series = frame[column.name]
         if column.type == "date":
-            strings = _small_text(pa.array(series, type=pa.large_string(), from_pandas=True))
+            strings = small_text(pa.array(series, type=pa.large_string(), from_pandas=True))
             arrays.append(_parse_dates(strings, resource, column.name))
         elif column.type == "string":
-            arrays.append(_small_text(pa.array(series, from_pandas=True)))
+            arrays.append(small_text(pa.array(series, from_pandas=True)))
         else:
             arrays.append(pa.array(series, type=_ARROW_TYPES[column.type], from_pandas=True))
     return pa.Table.from_arrays(arrays, schema=schema)
-
-
-def _small_text(array: pa.Array) -> pa.Array:
-    """Text as Arrow `string`. pandas keeps text as `large_string`, and a slice of a column of
-    more than 2 GiB of text keeps offsets beyond 2**31 into the whole column's buffer, which a
-    cast refuses ("input array too large"): the slice's text is copied first."""
-    if isinstance(array, pa.ChunkedArray):
-        array = array.combine_chunks()
-    if pa.types.is_large_string(array.type):
-        array = pa.concat_arrays([array])  # a slice's own text, offsets from 0
-    return array if array.type == pa.string() else array.cast(pa.string())
 
 
 def _parse_dates(strings: pa.Array, resource: data_model.Resource, name: str) -> pa.Array:
@@ -447,14 +379,15 @@ class ResourceWriter:
         self._pending_rows = 0
         self._schema = arrow_schema(resource)
         self._written = _written_schema(resource)
+        # Rows are formatted (CSV) or encoded and compressed (Parquet row groups) on one
+        # background thread (mostly Arrow work, which releases the GIL) while the build
+        # assembles the next batch; one thread keeps their order.
+        self._encoder = ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"write-{fmt}")
+        self._pending_groups: list[Future] = []
         if fmt == "csv":
             self._stream = open(self.path, "wb")  # noqa: SIM115 - closed in close()
-            self._emit(_csv_text(self.resource.empty_frame(), resource, header=True))
+            self._emit(csv_text(self.resource.empty_frame(), resource, header=True))
         else:
-            # Row groups are encoded and compressed on one background thread (pyarrow releases
-            # the GIL there) while the build assembles the next batch; one thread keeps order.
-            self._encoder = ThreadPoolExecutor(max_workers=1, thread_name_prefix="parquet")
-            self._pending_groups: list[Future] = []
             self._parquet = pq.ParquetWriter(
                 self.path,
                 self._written,
@@ -487,9 +420,7 @@ class ResourceWriter:
             return
         self.rows += len(frame)
         if self.fmt == "csv":
-            if isinstance(frame, pa.Table):
-                frame = frame_of_table(frame)
-            self._emit(_csv_text(frame, self.resource, header=False))
+            self._in_order(self._csv_rows, frame)
             return
         if isinstance(frame, pa.Table):
             table = _with_dates(frame, self.resource)
@@ -520,10 +451,18 @@ class ResourceWriter:
             self._write_group(group)
 
     def _write_group(self, pieces: list[pa.Table]) -> None:
-        # at most two row groups wait for the encoder: memory stays bounded
+        self._in_order(self._encode, pieces)
+
+    def _in_order(self, work: Callable[[Any], None], rows: Any) -> None:
+        """Run `work(rows)` on the encoder's thread after the work handed to it before."""
+        # at most two pieces of work wait for the encoder: memory stays bounded
         while len(self._pending_groups) >= 2:
             self._pending_groups.pop(0).result()
-        self._pending_groups.append(self._encoder.submit(self._encode, pieces))
+        self._pending_groups.append(self._encoder.submit(work, rows))
+
+    def _csv_rows(self, rows: pd.DataFrame | pa.Table) -> None:
+        """Format rows as CSV and write them (on the encoder's thread)."""
+        self._emit(csv_text(rows, self.resource, header=False))
 
     def _encode(self, pieces: list[pa.Table]) -> None:
         """Write one row group (on the encoder's thread): its pieces joined into one array per
@@ -555,7 +494,10 @@ class ResourceWriter:
 
     def close(self) -> WrittenFile:
         if self.fmt == "csv":
-            self._stream.close()
+            try:
+                self._drain()
+            finally:
+                self._stream.close()
             return WrittenFile(
                 self.name, "csv", "text/csv", self._size, self._digest.hexdigest(), self.rows
             )
@@ -570,12 +512,12 @@ class ResourceWriter:
 
     def abort(self) -> None:
         """Close without describing (the build failed; the staging folder is removed)."""
+        for group in self._pending_groups:
+            group.cancel()
+        self._encoder.shutdown(wait=True)
         if self.fmt == "csv":
             self._stream.close()
         else:
-            for group in self._pending_groups:
-                group.cancel()
-            self._encoder.shutdown(wait=True)
             self._parquet.close()
 
 

@@ -22,6 +22,7 @@ from dataclasses import replace
 from pathlib import Path
 
 import jsonschema
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -30,8 +31,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from harmonize import tables
+from harmonize.csv_text import _repr_text, csv_text
 from harmonize.errors import BuildError, ConfigError, UnsafePathError
-from harmonize.package import PackageInfo, _csv_text, prepare_frame, write_package
+from harmonize.package import PackageInfo, prepare_frame, write_package
 from harmonize.package_validate import check_paths, validate_package
 
 PROFILES = Path(__file__).parent / "data" / "profiles"
@@ -690,4 +692,23 @@ def test_csv_text_is_what_pandas_writes(rows, header):
     reference = frame.copy()
     reference["flag"] = reference["flag"].map({True: "true", False: "false"})
     pandas_text = reference.to_csv(index=False, header=header, lineterminator="\r\n", na_rep="")
-    assert _csv_text(frame, _CSV_PROBE, header) == _rfc4180(pandas_text).encode("utf-8")
+    assert csv_text(frame, _CSV_PROBE, header) == _rfc4180(pandas_text).encode("utf-8")
+
+
+def test_numbers_are_written_as_repr_writes_them():
+    # repr() of a double: the shortest digits that read back to it (Python 3.1+, Gay's
+    # algorithm), fixed notation for 1e-4 <= |x| < 1e16, scientific otherwise; pandas' CSV
+    # writes the same. Arrow's cast gives the digits, the notation is ours: every finite double
+    # of 200,000 random bit patterns, measurement-like values and the notation's edges.
+    rng = np.random.default_rng(20261203)
+    bits = rng.integers(0, 2**64 - 1, 200_000, dtype=np.uint64, endpoint=True)
+    random = bits.view(np.float64)
+    measured = np.array([float(f"{x:.{d}g}") for x, d in zip(
+        rng.lognormal(2, 3, 50_000), rng.integers(1, 9, 50_000), strict=True
+    )])  # fmt: skip
+    edges = np.array(
+        [1e-4, 9.999999999999999e-05, 1e16, 9999999999999998.0, 1e15, 123456789012345.6,
+         0.0, -0.0, 100.0, -7.0, 5e-324, 2.2250738585072014e-308, 1.7976931348623157e308]
+    )  # fmt: skip
+    for values in (random[np.isfinite(random)], measured, edges):
+        assert _repr_text(values).to_pylist() == [repr(float(v)) for v in values]

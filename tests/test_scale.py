@@ -461,7 +461,7 @@ def test_in_memory_tables_are_written_in_slices(demo_frames, tmp_path, monkeypat
     info = INFO
     write_package(demo_frames, tmp_path / "whole", info, fmt=fmt)
     sizes = []
-    convert = "_csv_text" if fmt == "csv" else "_arrow_table"
+    convert = "csv_text" if fmt == "csv" else "_arrow_table"
     original = getattr(package, convert)
 
     def recording(frame, *args, **kwargs):
