@@ -411,7 +411,8 @@ class ResourceWriter:
 
         A frame is converted WRITE_SLICE_ROWS rows at a time: a whole table of millions of
         rows (rejects) would be copied to Arrow or CSV text at once, and one text column over
-        2 GiB cannot be an Arrow string array. The bytes do not depend on it."""
+        2 GiB cannot be an Arrow string array. The bytes do not depend on it. CSV rows are
+        formatted later, on the writer's thread: a frame handed over must not be changed."""
         if len(frame) > WRITE_SLICE_ROWS and isinstance(frame, pd.DataFrame):
             for start in range(0, len(frame), WRITE_SLICE_ROWS):
                 self.write(frame.iloc[start : start + WRITE_SLICE_ROWS])
