@@ -5,7 +5,8 @@ For each size, one generated table (benchmarks/make_long_table.py, INVENTED data
 in separate child processes, so peak memories do not mix (peak RSS from
 `os.wait4`, wall time including interpreter start and imports):
 
-(a) the I/O floor: pyarrow reads the same Parquet file and writes it back (best of three);
+(a) the I/O floor: pyarrow reads the same Parquet file and writes it back (best of three),
+    with the memory allocator the build uses (harmonize/arrow_memory.py);
 (b) `harmonize build PROJECT --full -q`, including its own validation;
 (c) a naive conversion, one `pint.Quantity(value, unit).to(canonical)` per row, on a sample of
     N rows, extrapolated to the whole table;
@@ -50,6 +51,9 @@ def run_child(arguments: list[str]) -> tuple[float, float, str]:
 def _floor(table: Path, target: Path) -> None:
     import pyarrow.parquet as pq
 
+    from harmonize.arrow_memory import choose_memory_pool
+
+    choose_memory_pool()  # the allocator the build uses: it sways the floor as much
     pq.write_table(pq.read_table(table), target, compression="zstd")
 
 
@@ -59,6 +63,9 @@ def _package_floor(table: Path, values: Path, target: Path) -> None:
     Timed in this process, against the input floor timed the same way (best of three each)."""
     import pyarrow.parquet as pq
 
+    from harmonize.arrow_memory import choose_memory_pool
+
+    choose_memory_pool()
     package = pq.read_table(values)  # in memory before timing, as a build has its rows
     timings = {}
     for name, written in (("input", None), ("package", package)):

@@ -591,3 +591,19 @@ def test_large_change_report_survives_a_damaged_previous_package(
     assert not report.changes.previous_found
     assert report.changes.values["individual_values"].added == report.individual_values
     assert report.changes.values["individual_values"].removed == 0
+
+
+def test_the_command_line_allocates_with_jemalloc_unless_a_pool_was_chosen(monkeypatch):
+    # harmonize/arrow_memory.py: jemalloc where pyarrow has it; Arrow's own variable wins.
+    from harmonize.arrow_memory import POOL_VARIABLE, choose_memory_pool
+
+    before = pa.default_memory_pool()
+    try:
+        pa.set_memory_pool(pa.system_memory_pool())
+        monkeypatch.setenv(POOL_VARIABLE, "system")
+        assert choose_memory_pool() == "system"
+        monkeypatch.delenv(POOL_VARIABLE)
+        expected = "jemalloc" if "jemalloc" in pa.supported_memory_backends() else "system"
+        assert choose_memory_pool() == expected
+    finally:
+        pa.set_memory_pool(before)

@@ -11,6 +11,7 @@ import sys
 import click
 
 from harmonize import __version__
+from harmonize.arrow_memory import choose_memory_pool
 from harmonize.cli import build_cmd, check_cmd, export_cmd, quick_cmd, review_cmd, vocab_cmd
 from harmonize.errors import HarmonizeError
 
@@ -54,6 +55,7 @@ def _one_line(error: object) -> str:
 
 def main(argv: list[str] | None = None) -> None:
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
+    choose_memory_pool()  # jemalloc where available: see harmonize/arrow_memory.py
     try:
         result = cli.main(args=argv, prog_name="harmonize", standalone_mode=False)
         sys.exit(result if isinstance(result, int) else 0)
