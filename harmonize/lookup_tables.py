@@ -37,9 +37,8 @@ def unmatched_message(name: str, match: NameMatch | None, declared_in: str = MAP
         fix = "add a decision in the review sheet or declare `trait:` in the mapping"
     else:
         fix = "accept or reject it in the review sheet, or declare `trait:` in the mapping"
-    if guess is None:
+    if match is None or match.trait_id is None:
         return f"trait name '{name}' matches no vocabulary term; {fix}"
-    assert match is not None
     return (
         f"trait name '{name}' needs review: best guess '{guess}' (score {match.score:.0f}); {fix}"
     )

@@ -383,7 +383,7 @@ class ResourceWriter:
         # background thread (mostly Arrow work, which releases the GIL) while the build
         # assembles the next batch; one thread keeps their order.
         self._encoder = ThreadPoolExecutor(max_workers=1, thread_name_prefix=f"write-{fmt}")
-        self._pending_groups: list[Future] = []
+        self._pending_work: list[Future] = []
         if fmt == "csv":
             self._stream = open(self.path, "wb")  # noqa: SIM115 - closed in close()
             self._emit(csv_text(self.resource.empty_frame(), resource, header=True))
@@ -449,17 +449,14 @@ class ResourceWriter:
                     self._pending[0] = piece.slice(size)
                 size -= len(group[-1])
                 self._pending_rows -= len(group[-1])
-            self._write_group(group)
-
-    def _write_group(self, pieces: list[pa.Table]) -> None:
-        self._in_order(self._encode, pieces)
+            self._in_order(self._encode, group)
 
     def _in_order(self, work: Callable[[Any], None], rows: Any) -> None:
         """Run `work(rows)` on the encoder's thread after the work handed to it before."""
         # at most two pieces of work wait for the encoder: memory stays bounded
-        while len(self._pending_groups) >= 2:
-            self._pending_groups.pop(0).result()
-        self._pending_groups.append(self._encoder.submit(work, rows))
+        while len(self._pending_work) >= 2:
+            self._pending_work.pop(0).result()
+        self._pending_work.append(self._encoder.submit(work, rows))
 
     def _csv_rows(self, rows: pd.DataFrame | pa.Table) -> None:
         """Format rows as CSV and write them (on the encoder's thread)."""
@@ -487,10 +484,10 @@ class ResourceWriter:
 
     def _drain(self) -> None:
         try:
-            for group in self._pending_groups:
-                group.result()  # re-raises an encoding error here, in order
+            for work in self._pending_work:
+                work.result()  # re-raises a formatting or encoding error here, in order
         finally:
-            self._pending_groups = []
+            self._pending_work = []
             self._encoder.shutdown(wait=True)
 
     def close(self) -> WrittenFile:
@@ -513,8 +510,8 @@ class ResourceWriter:
 
     def abort(self) -> None:
         """Close without describing (the build failed; the staging folder is removed)."""
-        for group in self._pending_groups:
-            group.cancel()
+        for work in self._pending_work:
+            work.cancel()
         self._encoder.shutdown(wait=True)
         if self.fmt == "csv":
             self._stream.close()
