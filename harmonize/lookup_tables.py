@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from harmonize import units
-from harmonize.mapping_file import COMMAND_LINE, MAPPING_FILE
+from harmonize.mapping_file import COMMAND_LINE, Mapping
 from harmonize.match import NameMatch
 from harmonize.vocab import Vocabulary
 
@@ -24,15 +24,21 @@ if TYPE_CHECKING:
     from harmonize.assemble import SourcePlan
 
 
-def unmatched_message(name: str, match: NameMatch | None, declared_in: str = MAPPING_FILE) -> str:
+def command_line_fix(mapping: Mapping, trait_id: str | None = None) -> str:
+    """How to settle a trait name when the source was declared on the command line (quick
+    mode has no review sheet): --trait for a wide table's column, otherwise a project."""
+    project = "make a project with a mapping file to use the review sheet"
+    if mapping.layout != "wide":
+        return project
+    return f"--trait COLUMN={trait_id or 'TRAIT_ID'} names a column's trait, or {project}"
+
+
+def unmatched_message(name: str, match: NameMatch | None, mapping: Mapping | None = None) -> str:
     """Why a name's cells are rejected, and the fix where the source was declared: the review
-    sheet or the mapping file, or quick mode's --trait option (it has no review sheet)."""
+    sheet or the mapping file, or the command line's (`command_line_fix`)."""
     guess = None if match is None else match.trait_id
-    if declared_in == COMMAND_LINE:
-        fix = (
-            f"name its trait with --trait COLUMN={guess or 'TRAIT_ID'} (a wide table's column), "
-            "or make a project with a mapping file to use the review sheet"
-        )
+    if mapping is not None and mapping.read.declared_in == COMMAND_LINE:
+        fix = command_line_fix(mapping, guess)
     elif guess is None:
         fix = "add a decision in the review sheet or declare `trait:` in the mapping"
     else:
@@ -53,7 +59,7 @@ def name_table(distinct: list[str], plan: SourcePlan) -> pd.DataFrame:
         if match is not None and match.status == "rejected":
             message = f"trait name '{name}' was rejected in the decisions file"
         else:
-            message = unmatched_message(name, match, plan.mapping.read.declared_in)
+            message = unmatched_message(name, match, plan.mapping)
         rows.append(
             {
                 "trait_id": match.trait_id if accepted else None,

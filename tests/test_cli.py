@@ -275,3 +275,24 @@ def test_quick_mode_names_its_own_fixes_for_unknown_names_and_delimiters(tmp_pat
     rejects = pd.read_csv(tmp_path / "sheet-harmonized" / "rejects.csv")
     (message,) = rejects.loc[rejects["reason"] == "unmatched-name", "message"]
     assert "--trait COLUMN=" in message and "make a project with a mapping file" in message
+
+
+def test_quick_mode_long_table_is_not_told_to_use_trait(tmp_path, capsys) -> None:
+    # --trait names a wide table's column; a long table's names can only be settled in a
+    # project (review sheet or mapping), so neither the reject nor the summary offers --trait.
+    table = tmp_path / "long.tsv"
+    table.write_text(
+        "species\tvariable\tvalue\tunit\nPodarcis muralis\tSVL\t55\tmm\n"
+        "Podarcis muralis\tzqx index\t3\t\n",
+        encoding="utf-8",
+    )
+    code, out, err = run(
+        ["quick", str(table), "--taxon", "species", "--trait-column", "variable",
+         "--value-column", "value", "--unit-column", "unit"],
+        capsys,
+    )  # fmt: skip
+    assert code == 1, err
+    assert "make a project with a mapping file" in out and "--trait" not in out
+    rejects = pd.read_csv(tmp_path / "long-harmonized" / "rejects.csv")
+    (message,) = rejects.loc[rejects["reason"] == "unmatched-name", "message"]
+    assert "make a project with a mapping file" in message and "--trait" not in message

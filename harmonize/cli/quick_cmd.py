@@ -11,6 +11,7 @@ from harmonize.build import build_project
 from harmonize.cli.options import column_pairs, make_read_options, read_options
 from harmonize.cli.render import exit_code, progress_printer, summary_lines
 from harmonize.errors import ConfigError
+from harmonize.lookup_tables import command_line_fix
 from harmonize.project import (
     LongColumns,
     TemperatureSpec,
@@ -143,10 +144,7 @@ def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, dat
         ci_level=ci_level,
     )
     report = build_project(project, progress=progress_printer(quiet))
-    # quick mode has no project, so no review sheet; --trait names a wide table's column's trait
-    hint = "make a project with a mapping file to use the review sheet"
-    if not columns:
-        hint = f"name their traits with --trait COLUMN=TRAIT_ID, or {hint}"
+    hint = command_line_fix(project.mappings[0])  # quick mode has no review sheet
     for line in summary_lines(report, review_hint=hint):
         click.echo(line)
     sys.exit(exit_code(report))
