@@ -254,6 +254,14 @@ PARQUET_ROW_GROUP_ROWS = 131_072
 # default limit at level 3 (benchmarks/, invented data; figures in the README).
 _DICTIONARY_PAGE_BYTES = 65_536
 
+# Parquet encodings other than the default (a dictionary, falling back to plain values).
+# Row numbers rise through a source: delta encoding stores them in a few bits a row. Record
+# ids are distinct 16-character texts: a dictionary never pays, and with their lengths stored
+# apart the text compresses better. At 5 million benchmark rows (benchmarks/, invented data)
+# the row numbers took 58 ms to write instead of 191 ms and 0.3 MB instead of 5.3 MB; the
+# record ids 548 ms instead of 609 ms and 37.8 MB instead of 42.1 MB.
+_ENCODINGS = {"source_row": "DELTA_BINARY_PACKED", "record_id": "DELTA_LENGTH_BYTE_ARRAY"}
+
 # Rows of a frame a writer converts at a time (the bytes do not depend on it).
 WRITE_SLICE_ROWS = PARQUET_ROW_GROUP_ROWS
 
@@ -388,6 +396,7 @@ class ResourceWriter:
             self._stream = open(self.path, "wb")  # noqa: SIM115 - closed in close()
             self._emit(csv_text(self.resource.empty_frame(), resource, header=True))
         else:
+            encodings = {n: _ENCODINGS[n] for n in self._written.names if n in _ENCODINGS}
             self._parquet = pq.ParquetWriter(
                 self.path,
                 self._written,
@@ -396,7 +405,8 @@ class ResourceWriter:
                 compression="zstd",
                 compression_level=1,
                 write_statistics=True,
-                use_dictionary=True,
+                use_dictionary=[n for n in self._written.names if n not in encodings],
+                column_encoding=encodings or None,
                 dictionary_pagesize_limit=_DICTIONARY_PAGE_BYTES,
                 version="2.6",
             )
