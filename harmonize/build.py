@@ -113,10 +113,8 @@ def _account_fields(account: SourceAccount) -> dict:
 
 def _source_checksum(mapping: Mapping, limits: Limits) -> str:
     if not mapping.path.is_file():
-        raise SourceNotFoundError(
-            "source file not found",
-            file=str(mapping.path),
-            hint=f"path declared in {mapping.mapping_file.name}",
+        raise SourceNotFoundError.at(
+            mapping.path, "source file", hint=f"path declared in {mapping.mapping_file.name}"
         )
     files = sources.source_files(mapping, limits)
     if len(files) == 1:

@@ -180,8 +180,8 @@ def read_yaml_text(path: Path, error_class: type[ConfigError] = ConfigError) -> 
                 hint="configuration files are small; check that this is the intended file",
             )
         return path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise SourceNotFoundError("file not found", file=str(path)) from None
+    except (FileNotFoundError, IsADirectoryError):
+        raise SourceNotFoundError.at(path) from None
     except UnicodeDecodeError as error:
         raise error_class(
             f"not UTF-8 text ({error.reason})", file=str(path), hint="save the file as UTF-8"

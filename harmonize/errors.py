@@ -7,6 +7,7 @@ The library never prints or exits; the CLI turns these into one-line messages an
 
 from __future__ import annotations
 
+import os
 from enum import StrEnum
 
 
@@ -35,8 +36,8 @@ class HarmonizeError(Exception):
         where = []
         if self.file:
             where.append(str(self.file))
-        if self.row is not None:
-            where.append(f"row {self.row}")
+        if self.row is not None:  # data rows count from 1; row 0 is the header
+            where.append(f"row {self.row}" if self.row else "header row")
         if self.column:
             where.append(f"column '{self.column}'")
         text = ": ".join([", ".join(where), self.message]) if where else self.message
@@ -60,7 +61,13 @@ class ConfigError(HarmonizeError, ValueError):
 
 
 class SourceNotFoundError(HarmonizeError, FileNotFoundError):
-    """A declared file does not exist."""
+    """A declared file does not exist (or is a folder)."""
+
+    @classmethod
+    def at(cls, path: str | os.PathLike, what: str = "file", hint: str | None = None):
+        """The error for a path that is not a file: missing, or a folder."""
+        message = f"is a folder, not a {what}" if os.path.isdir(path) else f"{what} not found"
+        return cls(message, file=str(path), hint=hint)
 
 
 class UnsafePathError(HarmonizeError, PermissionError):

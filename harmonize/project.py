@@ -303,7 +303,7 @@ def single_file_project(
     """
     source_path = Path(os.path.realpath(path))
     if not source_path.is_file():
-        raise SourceNotFoundError("file not found", file=str(path))
+        raise SourceNotFoundError.at(path)
     fmt = EXTENSION_FORMATS.get(source_path.suffix.lower())
     if fmt is None:
         raise ConfigError(

@@ -318,10 +318,8 @@ def source_files(mapping: Mapping, limits: Limits) -> list[Path]:
 
 def read_header(mapping: Mapping) -> list[str]:
     if not mapping.path.is_file():
-        raise SourceNotFoundError(
-            "source file not found",
-            file=str(mapping.path),
-            hint=f"path declared in {mapping.mapping_file.name}",
+        raise SourceNotFoundError.at(
+            mapping.path, "source file", hint=f"path declared in {mapping.mapping_file.name}"
         )
     try:
         header_reader, _ = READERS[mapping.format]
