@@ -291,6 +291,18 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         )
         stat = np.full(count, _VALUE, dtype=np.int8)
     else:
+        # a number given as an individual's value has no place among population statistics
+        fate.reject(
+            (stat == _VALUE) & ~is_category,
+            RejectReason.INVALID_STATISTIC,
+            lambda at: [
+                f"statistic '{t if isinstance(t, str) else 'value'}' is an individual's "
+                "measurement, not a population statistic: name the statistic (mean, median, "
+                "...) or declare level: individual in the mapping (quick mode: --level "
+                "individual)"
+                for t in declared.texts[declared.codes[at]]
+            ],
+        )
         assumed = stat < 0
         stat = np.where(assumed, _MEAN, stat)
         assumed_mean = assumed & ~is_category

@@ -119,6 +119,27 @@ def test_confidence_bounds_that_name_their_level(tmp_path: Path) -> None:
     assert "ci_level: 0.9" in bad["message"].iloc[0]
 
 
+def test_an_individual_value_in_a_population_source_is_rejected(tmp_path: Path) -> None:
+    # Individual measurements must not be mixed with population summaries: a number whose
+    # statistic names an individual value is rejected, not dropped from the summary or taken as
+    # a mean; a category given as a value is kept (it describes the population).
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body mass,mean,50,g,10\n"
+        "Sorex minutus,m,body mass,value,61,g,\n"
+        "Sorex minutus,m,body mass,Individual,62,g,\n"
+    )
+    frames = built(project(tmp_path, table, LONG_POP))
+    out = frames["population_summaries"]
+    assert list(out["sex"]) == ["f"]
+    assert out["mean"].iloc[0] == 50
+    rejects = frames["rejects"].sort_values("source_row")
+    assert list(rejects["source_row"]) == [2, 3]
+    assert set(rejects["reason"]) == {"invalid-statistic"}
+    assert "'Individual' is an individual's measurement" in rejects["message"].iloc[1]
+    assert "level: individual" in rejects["message"].iloc[0]
+
+
 def test_sample_size_written_with_its_name(tmp_path: Path) -> None:
     # SD = SE * sqrt(n) (Cochrane Handbook 6.5.2.2): SE 1 g with 'n=9' is SD 3 g. An n cell
     # that is no count leaves n unknown, and the summary says why.
