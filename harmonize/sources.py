@@ -234,7 +234,20 @@ def _as_text(array: pa.ChunkedArray) -> pa.ChunkedArray:
         array = array.cast(array.type.value_type)
     if pa.types.is_string(array.type) or pa.types.is_large_string(array.type):
         return array
+    if pa.types.is_timestamp(array.type):
+        return _iso_timestamps(array)
     return pc.cast(array, pa.string())
+
+
+def _iso_timestamps(array: pa.ChunkedArray) -> pa.ChunkedArray:
+    """Timestamps as ISO 8601 text ('2024-05-01T10:00:00.123', '...T12:00:00+02:00',
+    '...Z'), the form Darwin Core's eventDate takes, instead of Arrow's '2024-05-01
+    10:00:00.123000' (a space, zero digits kept and a '+0200' offset)."""
+    text = pc.cast(array, pa.string())
+    text = pc.replace_substring_regex(text, r"^(-?\d+-\d\d-\d\d) ", r"\1T")
+    text = pc.replace_substring_regex(text, r"\.(\d*?)0+(Z|[+-]\d{4})?$", r".\1\2")
+    text = pc.replace_substring_regex(text, r"\.(Z|[+-]\d{4})?$", r"\1")
+    return pc.replace_substring_regex(text, r"([+-]\d\d)(\d\d)$", r"\1:\2")
 
 
 _NESTED_TYPES = (

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import datetime
 from pathlib import Path
 
 import pandas as pd
@@ -84,6 +85,35 @@ def test_parquet_numbers_become_text_cells(tmp_path: Path) -> None:
     mass = cells[cells["column"] == "mass"].sort_values("source_row")
     assert mass["raw_value"].tolist() == ["4.1", ""]
     assert cells["taxon_verbatim"].isna().sum() == 2  # the missing species, once per trait column
+
+
+@pytest.mark.parametrize("zone", [None, "UTC", "Europe/Berlin", "America/New_York"])
+def test_parquet_timestamps_become_iso_8601_text(tmp_path: Path, zone) -> None:
+    # ISO 8601 extended format (date 'T' time, offset '+hh:mm' or 'Z'), as Darwin Core's
+    # eventDate asks; Python's datetime.fromisoformat, an independent reader, must give back
+    # the same instant.
+    moments = [
+        datetime(2024, 5, 1, 10, 0, 0, 123000),
+        datetime(2024, 5, 2),
+        datetime(1999, 12, 31, 23, 59, 59, 1),
+    ]
+    kind = pa.timestamp("us", tz=zone)
+    stamps = pa.array(moments, kind)
+    path = tmp_path / "t.parquet"
+    table = {"species": ["Sorex minutus"] * 3, "id": ["A1", "A2", "A3"], "mass": [4.1, 4.2, 4.3]}
+    pq.write_table(pa.table({**table, "caught": stamps}), path)
+    mapping = mapping_for(
+        path, "parquet", read=ReadOptions(), context={"taxon": "species", "date": "caught"}
+    )
+    cells = cells_of(mapping)
+    texts = cells[cells["column"] == "mass"].sort_values("source_row")["date"].tolist()
+    assert all("T" in t and " " not in t for t in texts)
+    if zone == "UTC":
+        assert all(t.endswith("Z") for t in texts)
+    back = [datetime.fromisoformat(t.replace("Z", "+00:00")) for t in texts]
+    expected = stamps.to_pylist()
+    assert back == expected
+    assert ".000" not in texts[1]  # no zero digits after the second
 
 
 def test_long_table_keeps_rows(tmp_path: Path) -> None:
