@@ -369,7 +369,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         has_cell & has_hint & ~has_declared, cell_coded, Coded(name_codes, hint_texts)
     )
     scale = np.ones(count)
-    offset = np.zeros(count)
+    zero = np.zeros(count)  # locations convert as (value - zero) * scale (Conversion.zero)
     conversion_flags = Coded(np.zeros(count, dtype=np.int32), [""])  # text per unit pair
     needs_unit = numeric & (stat != _N) & fate.open
     if needs_unit.any():
@@ -387,7 +387,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         pair = text_of_code[unit_coded.codes[index]].astype(np.int64) * len(targets) + target
         pair = pair * 2 + (stat[index] == _VARIANCE)  # a variance may come in the unit squared
         pair_codes, pair_uniques = pd.factorize(pair)
-        pair_scale, pair_offset = np.ones(len(pair_uniques)), np.zeros(len(pair_uniques))
+        pair_scale, pair_zero = np.ones(len(pair_uniques)), np.zeros(len(pair_uniques))
         pair_reason = np.full(len(pair_uniques), None, dtype=object)
         pair_message = np.full(len(pair_uniques), None, dtype=object)
         pair_flag = np.zeros(len(pair_uniques), dtype=np.int32)
@@ -403,11 +403,11 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             if not conv.ok:
                 pair_reason[code], pair_message[code] = conv.reason, conv.message
                 continue
-            pair_scale[code], pair_offset[code] = conv.scale, conv.offset
+            pair_scale[code], pair_zero[code] = conv.scale, conv.zero
             if conv.flags:
                 pair_flag[code] = len(flag_texts)
                 flag_texts.append(";".join(conv.flags))
-        scale[index], offset[index] = pair_scale[pair_codes], pair_offset[pair_codes]
+        scale[index], zero[index] = pair_scale[pair_codes], pair_zero[pair_codes]
         conversion_flags.codes[index] = pair_flag[pair_codes]
         conversion_flags = conversion_flags.map(flag_texts)
         failed = np.zeros(count, dtype=bool)
@@ -425,8 +425,12 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     converted = np.select(
         [is_n, np.isin(stat, _SPREAD), is_variance],
         [number, number * np.abs(scale), number * scale**2],
-        number * scale + offset,
+        (number - zero) * scale + 0.0,  # + 0.0: -0 becomes 0 (IEEE 754-2019, 6.3)
     )
+    # binary noise of the conversion dropped past a double's 15 digits (7100 mg: 7.1 g)
+    moved = np.flatnonzero(((scale != 1.0) | (zero != 0.0)) & ~is_n)
+    if len(moved):
+        converted[moved] = units.digits_of_a_double(converted[moved])
 
     # 10. temperature of measurement, in degC
     temperature, temperature_reason = _measurement_temperature(cells, plan)
@@ -562,14 +566,14 @@ def _measurement_temperature(
         reasons[:] = f"temperature unit '{spec.unit}': {conv.message}"
         return np.full(count, np.nan), reasons
     if spec.value is not None:
-        return np.full(count, spec.value * conv.scale + conv.offset), reasons
+        return np.full(count, conv.apply(np.array([spec.value]))[0]), reasons
     parsed = values.parse_numbers(
         cells["temperature_raw"],
         decimal=plan.mapping.read.decimal,
         missing=plan.mapping.read.missing,
         declared_in=plan.mapping.read.declared_in,
     )
-    celsius = parsed.value * conv.scale + conv.offset
+    celsius = conv.apply(parsed.value)
     bad = ~np.isfinite(celsius)
     raw = cells["temperature_raw"].to_numpy(dtype=object)[bad]
     reasons[bad] = [

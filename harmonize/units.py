@@ -432,13 +432,43 @@ class Conversion:
     def ok(self) -> bool:
         return self.reason is None
 
+    @property
+    def zero(self) -> float:
+        """The value that converts to 0 (32 for degF -> degC), so that a location converts as
+        `(value - zero) * scale`: pint's offset carries binary noise (-17.777777777777743 for
+        degF), which `value * scale + offset` leaves in the result (32 degF gave 3.6e-14 degC).
+        Snapped to 12 significant digits where that moves it by less than 1e-13 of itself."""
+        if not self.offset or not self.scale:
+            return 0.0
+        zero = -self.offset / self.scale
+        snapped = float(f"{zero:.12g}")
+        return snapped if abs(snapped - zero) <= 1e-13 * abs(zero) else zero
+
     def apply(self, values: np.ndarray) -> np.ndarray:
         """Convert values, means, medians, quantiles, minima and maxima (affine)."""
-        return np.asarray(values, dtype=np.float64) * self.scale + self.offset
+        converted = (np.asarray(values, dtype=np.float64) - self.zero) * self.scale
+        return converted if self.scale == 1.0 and not self.offset else digits_of_a_double(converted)
 
     def apply_difference(self, values: np.ndarray) -> np.ndarray:
         """Convert SD, SE and interval widths: a difference of temperatures has no offset."""
-        return np.asarray(values, dtype=np.float64) * self.scale
+        converted = np.asarray(values, dtype=np.float64) * self.scale
+        return converted if self.scale == 1.0 else digits_of_a_double(converted)
+
+
+def digits_of_a_double(values: np.ndarray) -> np.ndarray:
+    """Converted numbers rounded to 15 significant digits, the decimal digits a double always
+    holds (DBL_DIG in C's float.h), to drop the binary noise a conversion leaves past them:
+    7100 mg is 7.1 g, not 7100 x 0.001 = 7.1000000000000005, and 310.15 K is 37 degC, not
+    36.99999999999997. A value moves by at most 5e-15 of itself. Values below 1e-8 or from 1e15
+    up (where the powers of ten used are not exact) are left as they are."""
+    x = np.array(values, dtype=np.float64)  # a copy, of any shape
+    flat = x.reshape(-1)  # a view of it
+    magnitude = np.abs(flat)
+    here = np.flatnonzero(np.isfinite(flat) & (magnitude >= 1e-8) & (magnitude < 1e15))
+    if len(here):
+        power = 10.0 ** (14 - np.floor(np.log10(magnitude[here])))  # 10**0 .. 10**22: exact
+        flat[here] = np.round(flat[here] * power) / power
+    return x
 
 
 def _failed(reason: RejectReason, message: str, source_unit: str | None = None) -> Conversion:

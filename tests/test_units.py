@@ -4,6 +4,8 @@ misreadings measured in the project's ecosystem notes, reject reasons, and cachi
 from __future__ import annotations
 
 import pickle
+from decimal import Decimal, localcontext
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -98,6 +100,44 @@ def test_apply_accepts_integer_arrays():
     converted = conversion("kg", "g").apply(np.array([1, 2, 3]))  # kilo = 1e3, SI Table 7
     assert converted.dtype == np.float64
     assert converted == pytest.approx([1000.0, 2000.0, 3000.0])
+
+
+# (raw, canonical, exact map as (scale, zero) in rationals, inputs as written, source)
+_EXACT_MAPS = [
+    ("mg", "g", (Fraction(1, 1000), 0), ["7100", "1", "333", "61.3", "0.5"], "SI Table 7"),
+    ("degF", "degC", (Fraction(5, 9), 32), ["32", "212", "98.6", "-40", "104.5"], "NIST B.9"),
+    ("K", "degC", (Fraction(1), Fraction("273.15")), ["310.15", "273.15", "300"], "SI 2.3.1"),
+    ("in", "mm", (Fraction("25.4"), 0), ["1", "3.5", "0.1"], "NIST SP 811 B.9"),
+    ("min", "h", (Fraction(1, 60), 0), ["90", "15", "1.5"], "SI Brochure Table 8"),
+]
+
+
+@pytest.mark.parametrize(("raw", "canonical", "exact", "written", "source"), _EXACT_MAPS)
+def test_decimal_values_convert_to_the_exact_result_to_fifteen_digits(
+    raw, canonical, exact, written, source
+):
+    # The exact result, in rational arithmetic from the standard's formula ((t - 32) x 5/9 for
+    # degF, NIST SP 811 (2008), B.9; t = T - 273.15, SI Brochure 9th ed., 2.3.1), rounded once
+    # to 15 significant digits (decimal's division is correctly rounded to its precision): a
+    # conversion may not leave its own binary noise (32 degF gave 3.6e-14 degC, 7100 mg gave
+    # 7.1000000000000005 g).
+    scale, zero = exact
+    exact_results = [(Fraction(w) - zero) * scale for w in written]
+    with localcontext(prec=15):
+        expected = [float(Decimal(r.numerator) / Decimal(r.denominator)) for r in exact_results]
+    converted = conversion(raw, canonical).apply(np.array([float(w) for w in written]))
+    assert converted.tolist() == expected, source
+
+
+def test_fifteen_digits_of_a_double():
+    # DBL_DIG = 15 (ISO C, float.h): a double keeps any 15 significant decimal digits
+    values = np.array([7.1000000000000005, 36.99999999999997, -0.1 - 0.2, 1e-9 / 3, 2e16 / 3])
+    rounded = units.digits_of_a_double(values)
+    assert rounded[:3].tolist() == [7.1, 37.0, -0.3]
+    assert rounded[3] == 1e-9 / 3  # below 1e-8: left alone
+    assert rounded[4] == 2e16 / 3  # from 1e15 up: left alone
+    assert np.all(np.abs(rounded - values) <= 5e-15 * np.abs(values))  # half the 15th digit
+    assert np.isnan(units.digits_of_a_double(np.array([np.nan])))[0]
 
 
 def test_standard_deviation_of_temperature_has_no_offset():
