@@ -402,6 +402,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             )
             if not conv.ok:
                 pair_reason[code], pair_message[code] = conv.reason, conv.message
+                if conv.reason is RejectReason.MISSING_UNIT:  # the fix depends on the layout
+                    pair_message[code] = lookup_tables.missing_unit_message(mapping, canon)
                 continue
             pair_scale[code], pair_zero[code] = conv.scale, conv.zero
             if conv.flags:

@@ -33,6 +33,22 @@ def command_line_fix(mapping: Mapping, trait_id: str | None = None) -> str:
     return f"--trait COLUMN={trait_id or 'TRAIT_ID'} names a column's trait, or {project}"
 
 
+def missing_unit_message(mapping: Mapping, canonical: str) -> str:
+    """Why a number without a unit is rejected, and the fix where the source was declared: the
+    row's unit cell (a long table with a unit column), or the column's declared unit."""
+    quick = mapping.read.declared_in == COMMAND_LINE
+    given = f"no unit given for trait unit '{canonical}'"
+    if mapping.layout == "long":
+        if mapping.columns is not None and mapping.columns.unit:
+            return f"{given}: write the unit in the row's '{mapping.columns.unit}' cell"
+        where = "--unit-column COLUMN" if quick else "`columns: {unit: COLUMN}` in the mapping"
+        return f"{given}: name the table's unit column ({where})"
+    where = (
+        "--unit COLUMN=UNIT" if quick else "`unit:` for the column under `traits:` in the mapping"
+    )
+    return f"{given}: declare the column's unit ({where}) or write it in the cell"
+
+
 def unmatched_message(name: str, match: NameMatch | None, mapping: Mapping | None = None) -> str:
     """Why a name's cells are rejected, and the fix where the source was declared: the review
     sheet or the mapping file, or the command line's (`command_line_fix`)."""

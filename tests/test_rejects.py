@@ -202,3 +202,35 @@ def test_oversized_cell_is_kept_as_an_excerpt(tmp_path: Path) -> None:
     hit = frames["rejects"][frames["rejects"]["reason"] == RejectReason.CELL_TOO_LARGE.value]
     raw = hit["raw_value"].iloc[0]
     assert len(raw) < 300 and raw.endswith("(300 characters)")
+
+
+@pytest.mark.parametrize(
+    ("table", "mapping", "fix"),
+    [
+        (  # wide: the column has no declared unit, its name no unit hint
+            "species,tail length\nSorex minutus,41\n",
+            IND,
+            "`unit:` for the column under `traits:` in the mapping",
+        ),
+        (  # long with a unit column: the row's unit cell is empty
+            "species,trait,value,unit\nSorex minutus,tail length,41,\n",
+            "level: individual\nlayout: long\ncontext: {taxon: species}\n"
+            "columns: {trait: trait, value: value, unit: unit}\n",
+            "write the unit in the row's 'unit' cell",
+        ),
+        (  # long without a unit column
+            "species,trait,value\nSorex minutus,tail length,41\n",
+            "level: individual\nlayout: long\ncontext: {taxon: species}\n"
+            "columns: {trait: trait, value: value}\n",
+            "`columns: {unit: COLUMN}` in the mapping",
+        ),
+    ],
+    ids=["wide", "long-unit-cell", "long-no-unit-column"],
+)
+def test_a_missing_unit_names_the_fix_for_the_layout(tmp_path: Path, table, mapping, fix) -> None:
+    case = Case(RejectReason.MISSING_UNIT, table, mapping, 1, "")
+    frames, _, _ = build_tables(load_project(make_project(tmp_path, case)))
+    rejects = frames["rejects"]
+    assert list(rejects["reason"]) == ["missing-unit"]
+    assert "trait unit 'mm'" in rejects["message"].iloc[0]
+    assert fix in rejects["message"].iloc[0]
