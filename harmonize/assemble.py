@@ -16,7 +16,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from harmonize import lookup_tables, units, values
+from harmonize import cell_units, lookup_tables, units, values
 from harmonize.errors import RejectReason
 from harmonize.match import NameMatch
 from harmonize.project import STATISTICS, Mapping
@@ -70,19 +70,6 @@ _VALUE, _MEAN, _N, _CV, _VARIANCE = (
 )
 _SPREAD = [_STATISTIC_INDEX[c] for c in SPREAD_STATISTICS]
 _CENTRAL = [_STATISTIC_INDEX[c] for c in CENTRAL_STATISTICS]
-
-
-def _units_differ(where: np.ndarray, first: Coded, second: Coded) -> np.ndarray:
-    """Per cell, whether two unit texts (both given `where`) name different units; decided
-    once per distinct pair ('g' and 'gram' are the same unit, 'mm' and 'cm' are not)."""
-    differs = np.zeros(len(where), dtype=bool)
-    rows = np.flatnonzero(where)
-    if len(rows):
-        pairs = pd.MultiIndex.from_arrays([first.codes[rows], second.codes[rows]])
-        pair_codes, pair_uniques = pd.factorize(pairs)
-        verdicts = [not units.same_unit(first.texts[a], second.texts[b]) for a, b in pair_uniques]
-        differs[rows] = np.array(verdicts, dtype=bool)[pair_codes]
-    return differs
 
 
 def _statistic_index(codes) -> np.ndarray:
@@ -349,7 +336,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # the row's unit column): two explicit statements disagree and either could be the typo, so
     # the cell is rejected rather than converted with a guess. A cell unit other than the one in
     # the column's name is used (the name is a default for the column) and flagged.
-    conflict = _units_differ(
+    conflict = cell_units.units_differ(
         has_declared & has_cell & numeric & (stat != _N) & fate.open, cell_coded, declared_coded
     )
     fate.reject(
@@ -365,59 +352,21 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             )
         ],
     )
-    cell_not_hint = _units_differ(
+    cell_not_hint = cell_units.units_differ(
         has_cell & has_hint & ~has_declared, cell_coded, Coded(name_codes, hint_texts)
     )
-    scale = np.ones(count)
-    zero = np.zeros(count)  # locations convert as (value - zero) * scale (Conversion.zero)
-    conversion_flags = Coded(np.zeros(count, dtype=np.int32), [""])  # text per unit pair
     needs_unit = numeric & (stat != _N) & fate.open
-    if needs_unit.any():
-        # one conversion per distinct (unit text, canonical unit) pair, by combined codes; a
-        # coefficient of variation is unit-free: its unit can only be %, a fraction or none
-        index = np.flatnonzero(needs_unit)
-        text_of_code, unit_texts = pd.factorize(
-            pd.Series(unit_coded.texts, dtype=object), use_na_sentinel=False
-        )
-        canon_of_name, canon_texts = pd.factorize(
-            pd.Series(canonical_by_name, dtype=object), use_na_sentinel=False
-        )
-        targets = [*canon_texts, "dimensionless"]
-        target = np.where(stat[index] == _CV, len(canon_texts), canon_of_name[name_codes[index]])
-        pair = text_of_code[unit_coded.codes[index]].astype(np.int64) * len(targets) + target
-        pair = pair * 2 + (stat[index] == _VARIANCE)  # a variance may come in the unit squared
-        pair_codes, pair_uniques = pd.factorize(pair)
-        pair_scale, pair_zero = np.ones(len(pair_uniques)), np.zeros(len(pair_uniques))
-        pair_reason = np.full(len(pair_uniques), None, dtype=object)
-        pair_message = np.full(len(pair_uniques), None, dtype=object)
-        pair_flag = np.zeros(len(pair_uniques), dtype=np.int32)
-        flag_texts = [""]
-        for code, key in enumerate(pair_uniques):
-            key, of_variance = divmod(key, 2)
-            raw, canon = unit_texts[key // len(targets)], targets[key % len(targets)]
-            convert = units.variance_conversion if of_variance else units.conversion
-            conv = convert(
-                raw if isinstance(raw, str) else None,
-                canon if isinstance(canon, str) else "dimensionless",
-            )
-            if not conv.ok:
-                pair_reason[code], pair_message[code] = conv.reason, conv.message
-                if conv.reason is RejectReason.MISSING_UNIT:  # the fix depends on the layout
-                    pair_message[code] = lookup_tables.missing_unit_message(mapping, canon)
-                continue
-            pair_scale[code], pair_zero[code] = conv.scale, conv.zero
-            if conv.flags:
-                pair_flag[code] = len(flag_texts)
-                flag_texts.append(";".join(conv.flags))
-        scale[index], zero[index] = pair_scale[pair_codes], pair_zero[pair_codes]
-        conversion_flags.codes[index] = pair_flag[pair_codes]
-        conversion_flags = conversion_flags.map(flag_texts)
-        failed = np.zeros(count, dtype=bool)
-        failed[index] = pd.notna(pair_reason)[pair_codes]
-        reason = np.full(count, None, dtype=object)
-        message = np.full(count, None, dtype=object)
-        reason[index], message[index] = pair_reason[pair_codes], pair_message[pair_codes]
-        fate.reject(failed, reason, message)
+    by_pair = cell_units.convert_by_pair(
+        needs_unit,
+        unit_coded,
+        canonical_by_name,
+        name_codes,
+        is_cv=stat == _CV,
+        is_variance=stat == _VARIANCE,
+        mapping=mapping,
+    )
+    scale, zero, conversion_flags = by_pair.scale, by_pair.zero, by_pair.flags
+    fate.reject(pd.notna(by_pair.reason), by_pair.reason, by_pair.message)
 
     # 9. converted numbers: locations affine, SD/SE by |scale|, variance by scale**2 (never an
     # offset: a spread of temperatures has none), CV by its own unit only, n as is
@@ -435,7 +384,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         converted[moved] = units.digits_of_a_double(converted[moved])
 
     # 10. temperature of measurement, in degC
-    temperature, temperature_reason = _measurement_temperature(cells, plan)
+    temperature, temperature_reason = cell_units.measurement_temperature(cells, plan.mapping)
     correction_label = np.full(count, None, dtype=object)
     correction_factor = np.full(count, np.nan)
     as_measured = np.full(count, np.nan)
@@ -551,37 +500,6 @@ def _correction_for(plan: SourcePlan, term) -> TemperatureCorrection:
     if term is not None and term.arrhenius_temperature is not None:
         return correction.with_arrhenius_temperature(term.arrhenius_temperature)
     return correction
-
-
-def _measurement_temperature(
-    cells: pd.DataFrame, plan: SourcePlan
-) -> tuple[np.ndarray, np.ndarray]:
-    """Temperature of measurement per cell in degC, and a reason text where it cannot be read."""
-    spec = plan.mapping.temperature
-    count = len(cells)
-    reasons = np.full(count, None, dtype=object)
-    if spec is None:
-        reasons[:] = "no measurement temperature declared (context.temperature in the mapping)"
-        return np.full(count, np.nan), reasons
-    conv = units.conversion(spec.unit, "degC")
-    if not conv.ok:
-        reasons[:] = f"temperature unit '{spec.unit}': {conv.message}"
-        return np.full(count, np.nan), reasons
-    if spec.value is not None:
-        return np.full(count, conv.apply(np.array([spec.value]))[0]), reasons
-    parsed = values.parse_numbers(
-        cells["temperature_raw"],
-        decimal=plan.mapping.read.decimal,
-        missing=plan.mapping.read.missing,
-        declared_in=plan.mapping.read.declared_in,
-    )
-    celsius = conv.apply(parsed.value)
-    bad = ~np.isfinite(celsius)
-    raw = cells["temperature_raw"].to_numpy(dtype=object)[bad]
-    reasons[bad] = [
-        f"measurement temperature '{r}' in column '{spec.column}' is not a number" for r in raw
-    ]
-    return celsius, reasons
 
 
 RAW_EXCERPT_CHARS = 200
