@@ -16,7 +16,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from harmonize import cell_units, lookup_tables, units, values
+from harmonize import cell_units, lookup_tables, second_statistics, units, values
 from harmonize.errors import RejectReason
 from harmonize.match import NameMatch
 from harmonize.project import STATISTICS, Mapping
@@ -316,9 +316,18 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             ],
         )
 
-    # 7. numbers: reasons from parsing (ranges are never a single value)
+    # 7. numbers: reasons from parsing (ranges are never a single value); cells that hold two
+    # statistics (both bounds of a 'range' or 'iqr'; a mean '± x' the mapping explains) carry
+    # the second beside them
     numeric = ~is_category
-    parse_failed = numeric & pd.notna(parsed.reason)
+    two = second_statistics.split_cells(stat, parsed, numeric, _STATISTIC_INDEX, mapping.plus_minus)
+    stat, number = two.stat, two.number
+    fate.reject(
+        pd.notna(two.one_number),
+        RejectReason.INVALID_STATISTIC,
+        lambda at: [second_statistics.one_number_message(s) for s in two.one_number[at]],
+    )
+    parse_failed = numeric & pd.notna(parsed.reason) & ~two.bounds_read
     fate.reject(parse_failed, parsed.reason, parsed.message)
 
     # 8. units: effective unit text and where it came from
@@ -372,16 +381,21 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     # offset: a spread of temperatures has none), CV by its own unit only, n as is
     is_n = stat == _N
     is_variance = stat == _VARIANCE
-    number = parsed.value
     converted = np.select(
         [is_n, np.isin(stat, _SPREAD), is_variance],
         [number, number * np.abs(scale), number * scale**2],
         (number - zero) * scale + 0.0,  # + 0.0: -0 becomes 0 (IEEE 754-2019, 6.3)
     )
+    second = np.where(  # a second statistic is a location (max, q3) or a spread (sd, se)
+        np.isin(two.second_stat, _SPREAD),
+        two.second_number * np.abs(scale),
+        (two.second_number - zero) * scale + 0.0,
+    )
     # binary noise of the conversion dropped past a double's 15 digits (7100 mg: 7.1 g)
     moved = np.flatnonzero(((scale != 1.0) | (zero != 0.0)) & ~is_n)
     if len(moved):
         converted[moved] = units.digits_of_a_double(converted[moved])
+        second[moved] = units.digits_of_a_double(second[moved])
 
     # 10. temperature of measurement, in degC
     temperature, temperature_reason = cell_units.measurement_temperature(cells, plan.mapping)
@@ -411,6 +425,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
             factor = np.where(is_variance[here], factor**2, factor)
             correction_factor[here] = factor
             converted[here] = np.where(is_variance[here], converted[here] * factor, corrected)
+            second[here] = second[here] * factor
             correction_label[here] = correction.label()
 
     # 11. flags a reviewer should see
@@ -426,6 +441,8 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         (cell_not_hint, "cell-unit-differs-from-name"),
         (origin == 2, "unit-from-name"),
         (assumed_mean, "statistic-assumed-mean"),
+        (two.plus_minus_read, f"plus-minus-read-as-{mapping.plus_minus}"),
+        (two.plus_minus_unused, "plus-minus-unused"),
         (pd.notna(correction_label), "temperature-corrected"),
         (uncorrected, "rate-not-corrected:no-measurement-temperature"),
     )
@@ -463,6 +480,11 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     else:
         individual = pa.table({})
         columns["statistic"] = _STATISTIC_ARRAY[stat]
+        has_second = two.second_stat >= 0
+        columns["second_statistic"] = np.where(
+            has_second, _STATISTIC_ARRAY[np.maximum(two.second_stat, 0)], None
+        )
+        columns["second_value"] = np.where(has_second, second, np.nan)
         columns["n_raw"] = cells["n_raw"]
         statistic_cells = rows_frame(written, columns)
     return BatchResult(

@@ -27,9 +27,10 @@ from harmonize.errors import ConfigError
 FORMATS = ("csv", "tsv", "parquet", "dwca", "datapackage")  # the last two: harmonize.foreign
 LEVELS = ("individual", "population")
 LAYOUTS = ("wide", "long")
+# 'range' and 'iqr' are cells holding both bounds ('50-60'), read as min and max, q1 and q3
 STATISTICS = (
     "value", "mean", "sd", "se", "n", "min", "max", "median", "q1", "q3", "ci_low", "ci_high",
-    "variance", "cv",
+    "variance", "cv", "range", "iqr",
 )  # fmt: skip
 GROUP_CONTEXT = ("sex", "life_stage", "site", "date")  # sub-groups a population may be split by
 ROLES = ("parameter", "threshold", "structure", "estimation", "forcing", "descriptive")
@@ -57,8 +58,10 @@ EXTENSION_FORMATS = {
 MAPPING_KEYS = (
     "source", "path", "format", "read", "citation", "licence", "level", "layout", "context",
     "traits", "columns", "ignore", "ci_level", "description", "combine_groups",
-    "arrhenius_temperature",
+    "arrhenius_temperature", "plus_minus",
 )  # fmt: skip
+# what the half-width after '±' in a population source's mean cells is ('4.1 ± 0.3')
+PLUS_MINUS = ("sd", "se")
 READ_KEYS = ("delimiter", "decimal", "thousands", "encoding", "missing", "sheet", "resource")
 TRAIT_KEYS = ("trait", "unit", "statistic", "role")
 LONG_KEYS = ("trait", "value", "unit", "statistic", "n")
@@ -151,6 +154,7 @@ class Mapping:
     ignore: tuple[str, ...] = ()
     ci_level: float = 0.95
     combine_groups: tuple[str, ...] = ()  # population sub-groups to pool (Cochrane Table 6.5.a)
+    plus_minus: str | None = None  # PLUS_MINUS: what '± x' after a mean is; None: not used
     arrhenius_temperature: float | None = None  # K; overrides trait and project values
 
     @property
@@ -349,10 +353,27 @@ def load_mapping(path: Path, root: Path) -> Mapping:
         ignore=tuple(str(c) for c in ignore),
         ci_level=ci_level,
         combine_groups=_combine_groups(data.get("combine_groups"), level, path),
+        plus_minus=checked_plus_minus(
+            as_string(data.get("plus_minus"), path, "plus_minus"), level, path
+        ),
         arrhenius_temperature=as_arrhenius_temperature(
             data.get("arrhenius_temperature"), path, "arrhenius_temperature"
         ),
     )
+
+
+def checked_plus_minus(value: str | None, level: str, file: Path | None = None) -> str | None:
+    """`plus_minus` as declared: sd or se, for population sources only."""
+    if value is None:
+        return None
+    where = str(file) if file else None
+    if value not in PLUS_MINUS:
+        raise ConfigError(
+            f"'plus_minus' must be one of {', '.join(PLUS_MINUS)}, got {value!r}", file=where
+        )
+    if level != "population":
+        raise ConfigError("'plus_minus' applies to population-level sources only", file=where)
+    return value
 
 
 def _combine_groups(value: Any, level: str, file: Path) -> tuple[str, ...]:

@@ -57,7 +57,8 @@ _STATISTIC_PHRASES = {
         q3 = q3 | p75 | upper quartile | third quartile | 3rd quartile
         ci_low = lcl | ci low | ci lo | ci lower | lower ci | low ci | lower cl
         ci_high = ucl | ci high | ci hi | ci upper | upper ci | high ci | upper cl
-        range = range""").items()
+        range = range
+        iqr = iqr | interquartile range""").items()
 }
 
 # Words of lab spreadsheets (English abbreviations with one reading in trait tables; German,

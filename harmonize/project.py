@@ -46,6 +46,7 @@ from harmonize.mapping_file import (  # noqa: F401 - the mapping's names, re-exp
     TemperatureSpec,
     TraitColumn,
     checked_ci_level,
+    checked_plus_minus,
     load_mapping,
 )
 
@@ -295,6 +296,7 @@ def single_file_project(
     vocabulary: Path | None = None,
     output_format: str = "csv",
     ci_level: float = 0.95,
+    plus_minus: str | None = None,
 ) -> Project:
     """A one-source project for a table without a mapping file (the CLI's quick mode).
 
@@ -318,6 +320,7 @@ def single_file_project(
     if layout == "long" and columns is None:
         raise ConfigError("a long table needs at least the trait and value columns named")
     checked_ci_level(ci_level)
+    checked_plus_minus(plus_minus, level)
     stem = (
         "".join(ch if ch.isalnum() else "-" for ch in source_path.stem.lower()).strip("-")
         or "table"
@@ -337,6 +340,7 @@ def single_file_project(
         columns=columns,
         ignore=tuple(ignore),
         ci_level=ci_level,
+        plus_minus=plus_minus,
     )
     root = source_path.parent
     return Project(

@@ -26,6 +26,8 @@ STATISTIC_ALIASES = {
     "standardfehler": "se", "erreur standard": "se", "error estándar": "se",
     "stichprobenumfang": "n", "anzahl": "n", "effectif": "n", "tamaño de muestra": "n",
     "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
+    "range": "range", "min-max": "range", "min–max": "range", "spannweite": "range",
+    "iqr": "iqr", "i.q.r.": "iqr", "interquartile range": "iqr",
 }  # fmt: skip
 
 # a confidence level written into a bound's name: '95% CI low', 'lower 95 % CI', 'CI (90%) upper'

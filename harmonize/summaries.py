@@ -100,6 +100,25 @@ def _rejects(cells: pd.DataFrame, reason: pd.Series, message: pd.Series) -> pd.D
     )
 
 
+def _with_second_statistics(
+    wide: pd.DataFrame, numbers: pd.DataFrame
+) -> tuple[pd.DataFrame, pd.Series]:
+    """The statistics of each population with the second statistics its cells carry (the max
+    of a 'range' cell, the SD after '±'), and per population whether one of them was dropped
+    because the population also gives that statistic in a cell of its own (which is used)."""
+    if "second_statistic" not in numbers.columns:
+        return wide, pd.Series(False, index=wide.index)
+    seconds = numbers[numbers["second_statistic"].notna()]
+    if seconds.empty:
+        return wide, pd.Series(False, index=wide.index)
+    carried = seconds.pivot_table(
+        index="group", columns="second_statistic", values="second_value", aggfunc="first"
+    )
+    clash = wide.reindex(columns=carried.columns).reindex(carried.index).notna() & carried.notna()
+    ignored = clash.any(axis=1).reindex(wide.index, fill_value=False)
+    return wide.combine_first(carried), ignored
+
+
 def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> SummaryResult:
     """Turn a source's accepted statistic cells into population summaries (+ rejected cells)."""
     if cells.empty:
@@ -127,6 +146,7 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
 
     numbers = cells[~is_category]
     wide = numbers.pivot(index="group", columns="statistic", values="value")
+    wide, second_ignored = _with_second_statistics(wide, numbers)
     for name in STATISTIC_FIELDS:
         if name not in wide.columns:
             wide[name] = np.nan
@@ -162,8 +182,15 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
         }
     )
     extra["cell_flags"] = [
-        _union_of_flags(f, "n-unreadable" if bad else None)
-        for f, bad in zip(extra["cell_flags"], unreadable.reindex(extra.index), strict=True)
+        _union_of_flags(
+            f, "n-unreadable" if bad else None, "second-statistic-ignored" if twice else None
+        )
+        for f, bad, twice in zip(
+            extra["cell_flags"],
+            unreadable.reindex(extra.index),
+            second_ignored.reindex(extra.index, fill_value=False),
+            strict=True,
+        )
     ]
     summary = pd.concat([carried, extra, normalised], axis=1)
 

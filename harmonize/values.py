@@ -477,7 +477,7 @@ def _fill_messages(
             quoted,
             " is a range (",
             bounds,
-            "), not a single value: map it to min/max statistics if it describes a population",
+            "), not a single value: if it is the range of a population, read the table at population level with the statistic range",
             "",
         )
         message[range_rows] = built.to_numpy(zero_copy_only=False)

@@ -140,6 +140,59 @@ def test_an_individual_value_in_a_population_source_is_rejected(tmp_path: Path) 
     assert "level: individual" in rejects["message"].iloc[0]
 
 
+WIDE_POP = """\
+level: population
+context: {taxon: species, sample_size: n}
+"""
+
+
+def test_cells_holding_two_statistics(tmp_path: Path) -> None:
+    # Both bounds of a range or interquartile range in one cell are min and max, q1 and q3
+    # (the SD estimates from them: Wan et al. 2014, tested in tests/test_stats.py); a range
+    # given as its width alone says neither bound and is rejected. Bounds of a temperature
+    # convert like any location: 50-104 degF is 10-40 degC (NIST SP 811 (2008), B.9).
+    table = (
+        "species,n,SVL range (mm),HL iqr (mm),CTmax range (degF),tail range (mm)\n"
+        "Sorex minutus,10,50-60,20 - 24,50–104,10\n"
+    )
+    frames = built(project(tmp_path, table, WIDE_POP))
+    out = frames["population_summaries"].set_index("trait_id")
+    assert (out.loc["snout_vent_length", "min"], out.loc["snout_vent_length", "max"]) == (50, 60)
+    assert (out.loc["head_length", "q1"], out.loc["head_length", "q3"]) == (20, 24)
+    ctmax = out.loc["critical_thermal_maximum"]
+    assert (ctmax["min"], ctmax["max"]) == (10, 40)
+    assert out.loc["snout_vent_length", "sd_method"] == "from range (estimate)"
+    (reject,) = frames["rejects"].itertuples()  # the one cell rejected
+    assert (reject.column, reject.reason) == ("tail range (mm)", "invalid-statistic")
+    assert "is a width" in reject.message
+
+
+def test_plus_minus_after_a_mean(tmp_path: Path) -> None:
+    # '98.6 ± 1.8' in degF with plus_minus: sd is a mean of 37 degC and an SD of 1 degC: the SD
+    # takes the scale 5/9 and no offset (NIST SP 811 (2008), B.9). Without plus_minus the mean
+    # is kept and the half-width is not used, and the summary says so; a population that also
+    # gives its SD in a cell of its own uses that cell.
+    table = (
+        "species,sex,n,Tb mean (degF),Tb SD (degF)\n"
+        "Sorex minutus,f,10,98.6 ± 1.8,\n"
+        "Sorex minutus,m,10,98.6 ± 1.8,3.6\n"
+    )
+    mapping = "level: population\ncontext: {taxon: species, sex: sex, sample_size: n}\n"
+    plain = built(project(tmp_path / "plain", table, mapping))["population_summaries"]
+    plain = plain.set_index("sex")
+    assert plain.loc["f", "mean"] == 37.0 and pd.isna(plain.loc["f", "sd"])
+    assert "plus-minus-unused" in plain.loc["f", "flags"]
+    declared = mapping + "plus_minus: sd\n"
+    frames = built(project(tmp_path / "sd", table, declared))
+    out = frames["population_summaries"].set_index("sex")
+    assert (out.loc["f", "mean"], out.loc["f", "sd"]) == (37.0, 1.0)
+    assert out.loc["f", "sd_method"] == "given"
+    assert "plus-minus-read-as-sd" in out.loc["f", "flags"]
+    assert out.loc["m", "sd"] == 2.0  # its own SD cell, 3.6 degF
+    assert "second-statistic-ignored" in out.loc["m", "flags"]
+    assert frames["rejects"].empty
+
+
 def test_sample_size_written_with_its_name(tmp_path: Path) -> None:
     # SD = SE * sqrt(n) (Cochrane Handbook 6.5.2.2): SE 1 g with 'n=9' is SD 3 g. An n cell
     # that is no count leaves n unknown, and the summary says why.

@@ -55,6 +55,8 @@ MAPPING_MISTAKES = [
     ("traits: {mass: {statistic: average}}\n", ConfigError, "unknown statistic 'average'"),
     ("traits: {mass: {role: decoration}}\n", ConfigError, "unknown role 'decoration'"),
     ("ci_level: 3\n", ConfigError, "'ci_level'"),
+    ("plus_minus: sd\n", ConfigError, "'plus_minus' applies to population-level sources only"),
+    ("plus_minus: ci\n", ConfigError, "'plus_minus' must be one of sd, se"),
     ("context: {temperature: {unit: degC}}\n", ConfigError, "exactly one of 'column' or 'value'"),
 ]
 

@@ -21,6 +21,9 @@ from harmonize.statistic_names import read_statistic
         ("99.5% ci_upper", ("ci_high", 0.995)),
         ("LCL 95%", ("ci_low", 0.95)),
         ("25%", ("q1", None)),  # a quartile, not a confidence level
+        ("Range", ("range", None)),  # both bounds in one cell ('50-60')
+        ("IQR", ("iqr", None)),
+        ("interquartile range", ("iqr", None)),
         ("95%", (None, None)),
         ("90% CI", (None, None)),  # which bound?
         ("95% mean", (None, None)),  # a level only belongs to a bound

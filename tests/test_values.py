@@ -98,7 +98,7 @@ REJECTED = [
     ("-Infinity", ".", None, RejectReason.NON_FINITE, "finite"),
     ("NaN", ".", None, RejectReason.NON_FINITE, "finite"),
     ("1e999", ".", None, RejectReason.NON_FINITE, "finite"),  # overflows IEEE 754 binary64
-    ("3-5", ".", None, RejectReason.RANGE_VALUE, "min/max"),
+    ("3-5", ".", None, RejectReason.RANGE_VALUE, "with the statistic range"),
 ]
 
 

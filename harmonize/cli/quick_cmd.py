@@ -79,6 +79,11 @@ from harmonize.project import (
     show_default=True,
     help="Confidence level of the table's CI bounds, as a fraction.",
 )
+@click.option(
+    "--plus-minus",
+    type=click.Choice(["sd", "se"]),
+    help="Population table: what the half-width after '±' in a mean cell is ('4.1 ± 0.3').",
+)
 @read_options
 @click.option(
     "--output",
@@ -96,7 +101,7 @@ from harmonize.project import (
 @click.option("--quiet", "-q", is_flag=True, help="Print only the summary.")
 def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, date, sample_size, temperature,
           units, traits, statistics, ignore, trait_column, value_column, unit_column, statistic_column,
-          ci_level, delimiter, decimal, thousands, encoding, missing, output, output_format, quiet) -> None:  # fmt: skip
+          ci_level, plus_minus, delimiter, decimal, thousands, encoding, missing, output, output_format, quiet) -> None:  # fmt: skip
     """Harmonise TABLE (CSV, TSV or Parquet) in one go: name the columns, get a package."""
     context = {
         key: column
@@ -142,6 +147,7 @@ def quick(table: Path, level: str, taxon, individual, sex, life_stage, site, dat
         temperature=spec,
         output_format=output_format,
         ci_level=ci_level,
+        plus_minus=plus_minus,
     )
     report = build_project(project, progress=progress_printer(quiet))
     hint = command_line_fix(project.mappings[0])  # quick mode has no review sheet
