@@ -84,16 +84,37 @@ def _header_text(mapping: Mapping) -> str:
     return raw.decode(encoding)
 
 
+_BYTE_ORDER_MARKS = (  # longest first: a UTF-32 LE mark begins like a UTF-16 LE one
+    (codecs.BOM_UTF32_LE, "utf-32"),
+    (codecs.BOM_UTF32_BE, "utf-32"),
+    (codecs.BOM_UTF16_LE, "utf-16"),
+    (codecs.BOM_UTF16_BE, "utf-16"),
+)
+
+
+def _byte_order_mark(path: Path) -> str | None:
+    """The encoding a file's UTF-16 or UTF-32 byte-order mark names (Unicode 15, 23.8), if any."""
+    with open(path, "rb") as handle:
+        start = handle.read(4)
+    return next((name for mark, name in _BYTE_ORDER_MARKS if start.startswith(mark)), None)
+
+
 def _delimited_header(mapping: Mapping) -> list[str]:
     try:
         header = next(csv.reader([_header_text(mapping)], delimiter=_delimiter(mapping)), None)
     except UnicodeDecodeError as error:
+        marked = _byte_order_mark(mapping.path)
+        hint = f"{error.reason}; declare the file's encoding, e.g. " + mapping.read.spell(
+            ("encoding", marked or "latin-1")
+        )
+        if marked:
+            hint = f"the file starts with a {marked.upper()} byte-order mark, as spreadsheets "
+            hint += f"save 'Unicode text': declare {mapping.read.spell(('encoding', marked))}"
         raise SourceReadError(
             f"header is not valid {mapping.read.encoding} text",
             file=str(mapping.path),
             row=0,
-            hint=f"{error.reason}; declare the file's encoding, e.g. "
-            f"{mapping.read.spell(('encoding', 'latin-1'))}",
+            hint=hint,
         ) from None
     except csv.Error as error:
         raise SourceReadError(
