@@ -66,6 +66,7 @@ UNIT_ATOMS = (
 NAME_ATOMS = (
     "body mass", "mass_g", "Body mass [g]", "SVL (mm)", "SVL", "CTmax (°C)", "VO2", "Ta",
     "thermoregulation", "length", "weight (kg)", "zqx_index", "", "=HYPERLINK(1)", "peso",
+    "SVL range (mm)", "mass IQR (g)", "mass mean (g)", "CTmax SD",
 )  # fmt: skip
 TAXA = ("Sorex minutus", "Podarcis muralis", "podarcis  muralis", "S. minutus", "", "NA", "sp.")
 
@@ -87,6 +88,7 @@ dialect = st.fixed_dictionaries(
         "decimal": st.sampled_from([".", ","]),
         "line_end": st.sampled_from(["\n", "\r\n"]),
         "level": st.sampled_from(["individual", "population"]),
+        "plus_minus": st.sampled_from([None, "sd", "se"]),  # population sources only
     }
 )
 
@@ -136,6 +138,7 @@ def build(path: Path, form: dict, *, long: bool):
             delimiter=form["delimiter"], decimal=form["decimal"], missing=("", "NA", "n.d.")
         ),
         vocabulary=TINY_VOCABULARY,
+        plus_minus=form["plus_minus"] if form["level"] == "population" else None,
     )
     return build_tables(project)
 
