@@ -101,21 +101,30 @@ class Vocabulary:
         self, text: str = "", role: str | None = None, kind: str | None = None
     ) -> list[Term]:
         """Terms whose id, label or a synonym contains `text` (case-insensitive), optionally
-        limited to one role and one kind, in vocabulary order. Empty text lists every term."""
+        limited to one role and one kind. Closest first: a spelling equal to the text, then
+        one holding it as a whole word, then any other; among equals the shorter spelling,
+        then vocabulary order. Empty text lists every term in vocabulary order."""
         for value, allowed, what in ((role, ROLES, "role"), (kind, KINDS, "kind")):
             if value is not None and value not in allowed:
                 raise ValueError(f"unknown {what} '{value}'; choose one of {', '.join(allowed)}")
-        needle = _fold(text)
+        needle = _fold(text).replace("_", " ")  # ids are searched as words
+        word = re.compile(rf"(?<!\w){re.escape(needle)}(?!\w)") if needle else None
         found = []
-        for term in self.terms.values():
+        for position, term in enumerate(self.terms.values()):
             if role is not None and term.role != role:
                 continue
             if kind is not None and term.kind != kind:
                 continue
             haystack = (term.id, term.label, *term.synonyms, *term.ambiguous_synonyms)
-            if any(needle in _fold(candidate) for candidate in haystack):
-                found.append(term)
-        return found
+            spellings = [_fold(c).replace("_", " ") for c in haystack]
+            ranks = [
+                (0 if s == needle else 1 if word and word.search(s) else 2, len(s))
+                for s in spellings
+                if needle in s
+            ]
+            if ranks:
+                found.append((*min(ranks), position, term))
+        return [term for *_, term in sorted(found, key=lambda f: f[:3])]
 
 
 def bundled_vocabulary_path() -> Path:

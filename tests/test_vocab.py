@@ -315,6 +315,18 @@ def test_search(text, role, kind, expected):
     assert [t.id for t in found] == expected
 
 
+def test_search_puts_the_closest_spelling_first():
+    # a spelling equal to the text, then one holding it as a word, then a part of a word
+    vocab = load_vocabulary(TINY)
+    assert [t.id for t in vocab.search("ta")][:1] == ["air_temperature"]  # synonym 'Ta'
+    found = [t.id for t in vocab.search("therm")]
+    # 'thermoregulation' (16 characters) is shorter than 'critical thermal maximum'
+    assert found == ["thermoregulatory_mode", "critical_thermal_maximum"]
+    assert [t.id for t in vocab.search("body_mass_wet")] == ["body_mass_wet"]
+    bundled = load_vocabulary()
+    assert bundled.search("mass")[0].id == "body_mass_wet"  # 'mass' is one of its synonyms
+
+
 def test_search_without_filters_lists_everything():
     vocab = load_vocabulary(TINY)
     assert len(vocab.search()) == len(vocab) == 6
