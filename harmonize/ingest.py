@@ -455,6 +455,8 @@ def read_source(
                 "batch",
                 {"source": mapping.source, "rows": rows, "fraction": batch.fraction_read},
             )
+    if progress:  # the last word on the source: all of it read
+        progress("source-read", {"source": mapping.source, "rows": rows, "fraction": 1.0})
     values = sink.end_source()
     written = sink.source_rows
     population, summary_rejects, summary_written = _population(

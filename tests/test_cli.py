@@ -296,3 +296,29 @@ def test_quick_mode_long_table_is_not_told_to_use_trait(tmp_path, capsys) -> Non
     rejects = pd.read_csv(tmp_path / "long-harmonized" / "rejects.csv")
     (message,) = rejects.loc[rejects["reason"] == "unmatched-name", "message"]
     assert "make a project with a mapping file" in message and "--trait" not in message
+
+
+def test_progress_shows_the_share_read_and_ends_with_all_read(capsys, monkeypatch) -> None:
+    # lines are throttled to one per interval; a source read within the first interval gets
+    # only its last line (before, tiny sources ended on '96% read, about 0 s left')
+    from harmonize.cli import render
+
+    clock = iter([0.0, 0.1, 0.2, 1.0, 1.2, 5.0, 5.1])
+    monkeypatch.setattr(render.time, "monotonic", lambda: next(clock))
+    progress = render.progress_printer(quiet=False)
+    progress("source", {"source": "s"})  # 0.0
+    progress("batch", {"source": "s", "rows": 10, "fraction": 0.4})  # 0.1: within the interval
+    progress("batch", {"source": "s", "rows": 20, "fraction": 0.5})  # 0.2: within the interval
+    progress("batch", {"source": "s", "rows": 40, "fraction": 0.8})  # 1.0: shown
+    progress("source-read", {"source": "s", "rows": 50, "fraction": 1.0})  # 1.2
+    progress("source", {"source": "tiny"})  # 5.0
+    progress("source-read", {"source": "tiny", "rows": 3, "fraction": 1.0})  # 5.1
+    lines = [line.strip() for line in capsys.readouterr().err.splitlines()]
+    assert lines == [
+        "reading s ...",
+        "s: 40 rows, 40 rows/s, 80% read, about 0 s left",
+        "s: 50 rows, 42 rows/s, all read in 1 s",
+        "reading tiny ...",
+        "tiny: 3 rows, 30 rows/s, all read in 0 s",
+    ]
+    assert render.progress_printer(quiet=True) is None

@@ -123,18 +123,22 @@ class _BatchProgress:
 
     def start(self, source: str) -> None:
         self.finish()
-        self.source, self.started, self.shown = source, time.monotonic(), 0.0
+        # the first line after one interval: a source read sooner only gets its last line
+        self.source = source
+        self.started = self.shown = time.monotonic()
 
-    def batch(self, detail: dict) -> None:
+    def batch(self, detail: dict, *, last: bool = False) -> None:
         now = time.monotonic()
-        if now - self.shown < PROGRESS_INTERVAL_SECONDS:
+        if now - self.shown < PROGRESS_INTERVAL_SECONDS and not last:
             return
         self.shown = now
         elapsed = max(now - self.started, 1e-9)
         rows = int(detail["rows"])
         text = f"  {detail['source']}: {rows:,} rows, {rows / elapsed:,.0f} rows/s"
         fraction = detail.get("fraction")
-        if fraction:
+        if last:
+            text += f", all read in {_duration(elapsed)}"
+        elif fraction:
             left = elapsed * (1 - fraction) / fraction
             text += f", {fraction:.0%} read, about {_duration(left)} left"
         stream = self.stream or sys.stderr
@@ -172,6 +176,8 @@ def progress_printer(quiet: bool):
             click.echo(f"reusing {detail['source']} (unchanged since the last build)", err=True)
         elif event == "batch":
             batches.batch(detail)
+        elif event == "source-read":
+            batches.batch(detail, last=True)
         elif event == "write":
             batches.finish()
             click.echo("writing and validating the package ...", err=True)
