@@ -329,6 +329,15 @@ def load_mapping(path: Path, root: Path) -> Mapping:
             file=str(path),
             hint="set layout: long, or use 'traits'",
         )
+    elif fmt == "dwca" and not traits:
+        # read wide, every Darwin Core term (occurrenceID, basisOfRecord ...) would be a trait
+        raise ConfigError(
+            "a Darwin Core Archive holds one measurement per MeasurementOrFact row: read it as "
+            "a long table",
+            file=str(path),
+            hint="layout: long, columns: {trait: measurementType, value: measurementValue, "
+            "unit: measurementUnit}, context: {taxon: scientificName}",
+        )
 
     ignore = data.get("ignore") or []
     if not isinstance(ignore, list):

@@ -57,6 +57,7 @@ MAPPING_MISTAKES = [
     ("ci_level: 3\n", ConfigError, "'ci_level'"),
     ("plus_minus: sd\n", ConfigError, "'plus_minus' applies to population-level sources only"),
     ("plus_minus: ci\n", ConfigError, "'plus_minus' must be one of sd, se"),
+    ("format: dwca\n", ConfigError, "one measurement per MeasurementOrFact row"),
     ("context: {temperature: {unit: degC}}\n", ConfigError, "exactly one of 'column' or 'value'"),
 ]
 
