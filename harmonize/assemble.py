@@ -386,16 +386,20 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         [number, number * np.abs(scale), number * scale**2],
         (number - zero) * scale + 0.0,  # + 0.0: -0 becomes 0 (IEEE 754-2019, 6.3)
     )
-    second = np.where(  # a second statistic is a location (max, q3) or a spread (sd, se)
-        np.isin(two.second_stat, _SPREAD),
-        two.second_number * np.abs(scale),
-        (two.second_number - zero) * scale + 0.0,
-    )
+    has_second = two.second_stat >= 0
+    second = np.full(count, np.nan)
+    if has_second.any():  # a second statistic is a location (max, q3) or a spread (sd, se)
+        second = np.where(
+            np.isin(two.second_stat, _SPREAD),
+            two.second_number * np.abs(scale),
+            (two.second_number - zero) * scale + 0.0,
+        )
     # binary noise of the conversion dropped past a double's 15 digits (7100 mg: 7.1 g)
     moved = np.flatnonzero(((scale != 1.0) | (zero != 0.0)) & ~is_n)
     if len(moved):
         converted[moved] = units.digits_of_a_double(converted[moved])
-        second[moved] = units.digits_of_a_double(second[moved])
+        if has_second.any():
+            second[moved] = units.digits_of_a_double(second[moved])
 
     # 10. temperature of measurement, in degC
     temperature, temperature_reason = cell_units.measurement_temperature(cells, plan.mapping)
@@ -480,7 +484,6 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     else:
         individual = pa.table({})
         columns["statistic"] = _STATISTIC_ARRAY[stat]
-        has_second = two.second_stat >= 0
         columns["second_statistic"] = np.where(
             has_second, _STATISTIC_ARRAY[np.maximum(two.second_stat, 0)], None
         )

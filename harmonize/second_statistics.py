@@ -52,13 +52,12 @@ def split_cells(
     second_number = np.full(count, np.nan)
     bounds_read = np.zeros(count, dtype=bool)
     one_number = np.full(count, None, dtype=object)
-    is_range = np.asarray(parsed.reason == RejectReason.RANGE_VALUE, dtype=bool)
     for two_part, (first, second) in _BOUNDS.items():
         here = numeric & (stat == index[two_part])
-        if not here.any():
+        if not here.any():  # most sources: no compare of reasons (objects) cell by cell
             continue
-        both = here & is_range
-        one_number[here & ~is_range & np.isfinite(parsed.value)] = two_part
+        both = here & np.asarray(parsed.reason == RejectReason.RANGE_VALUE, dtype=bool)
+        one_number[here & ~both & np.isfinite(parsed.value)] = two_part
         bounds_read |= both
         number[both], second_number[both] = parsed.low[both], parsed.high[both]
         stat[here], second_stat[both] = index[first], index[second]

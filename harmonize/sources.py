@@ -104,12 +104,12 @@ def _delimited_header(mapping: Mapping) -> list[str]:
         header = next(csv.reader([_header_text(mapping)], delimiter=_delimiter(mapping)), None)
     except UnicodeDecodeError as error:
         marked = _byte_order_mark(mapping.path)
-        hint = f"{error.reason}; declare the file's encoding, e.g. " + mapping.read.spell(
-            ("encoding", marked or "latin-1")
-        )
         if marked:
             hint = f"the file starts with a {marked.upper()} byte-order mark, as spreadsheets "
             hint += f"save 'Unicode text': declare {mapping.read.spell(('encoding', marked))}"
+        else:
+            hint = f"{error.reason}; declare the file's encoding, e.g. "
+            hint += mapping.read.spell(("encoding", "latin-1"))
         raise SourceReadError(
             f"header is not valid {mapping.read.encoding} text",
             file=str(mapping.path),
