@@ -25,6 +25,7 @@ class HarmonizeError(Exception):
         column: str | None = None,
         hint: str | None = None,
     ) -> None:
+        message, column, hint = (_one_line(t) if t else t for t in (message, column, hint))
         super().__init__(message)
         self.message = message
         self.file = file
@@ -43,13 +44,19 @@ class HarmonizeError(Exception):
         text = ": ".join([", ".join(where), self.message]) if where else self.message
         if self.hint:
             text += f" ({self.hint})"
-        return text
+        return _one_line(text)
 
     def __reduce__(self):  # keep structured fields when pickled (e.g. across Dask workers)
         return (
             _rebuild,
             (type(self), self.message, self.file, self.row, self.column, self.hint),
         )
+
+
+def _one_line(text: str) -> str:
+    """An error is one line, whatever a file name, header or quoted library message holds (a
+    quoted header name may hold a line break): breaks are written as the escapes \\n, \\r."""
+    return text.replace("\r", "\\r").replace("\n", "\\n")
 
 
 def _rebuild(cls, message, file, row, column, hint):

@@ -177,6 +177,17 @@ def test_duplicate_header_is_refused(tmp_path: Path) -> None:
         read_header(mapping_for(path, "csv", read=ReadOptions()))
 
 
+def test_an_error_naming_a_header_with_a_line_break_stays_one_line(tmp_path: Path) -> None:
+    # found by tests/test_properties.py: a quoted header name may hold a line break, and the
+    # error naming it must still be one line (the break written as \n)
+    path = tmp_path / "dup.csv"
+    path.write_text('species,"0\n0","0\n0"\n', encoding="utf-8")
+    with pytest.raises(SourceReadError) as caught:
+        read_header(mapping_for(path, "csv", read=ReadOptions()))
+    assert "\n" not in str(caught.value)
+    assert "column '0\\n0' appears twice" in str(caught.value)
+
+
 def test_file_size_limit(tmp_path: Path) -> None:
     path = tmp_path / "t.csv"
     write_delimited(path, ",")
