@@ -405,7 +405,9 @@ def west_rows(rng: np.random.Generator) -> list[list[str]]:
         add(pop, "body mass", "q1", median - 0.62 * mass_sd, mass_unit)
         add(pop, "body mass", "q3", median + 0.74 * mass_sd, mass_unit)
         if index == 0:
-            rows.append([pop.species, pop.site, "body mass", "mode", "8.6", "g", str(pop.n)])
+            rows.append(
+                [pop.species, pop.site, "body mass", "geometric mean", "8.6", "g", str(pop.n)]
+            )
 
         length_sd = 0.05 * pop.head_body_mm
         mean = pop.head_body_mm * rng.normal(1, 0.015)

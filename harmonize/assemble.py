@@ -65,8 +65,8 @@ def _labelled(prefix: str, values: np.ndarray) -> Coded:
 
 _STATISTIC_ARRAY = np.array(STATISTIC_CODES, dtype=object)
 _STATISTIC_INDEX = {code: i for i, code in enumerate(STATISTIC_CODES)}
-_VALUE, _MEAN, _N, _CV, _VARIANCE = (
-    _STATISTIC_INDEX[c] for c in ("value", "mean", "n", "cv", "variance")
+_VALUE, _MEAN, _N, _CV, _VARIANCE, _MODE = (
+    _STATISTIC_INDEX[c] for c in ("value", "mean", "n", "cv", "variance", "mode")
 )
 _SPREAD = [_STATISTIC_INDEX[c] for c in SPREAD_STATISTICS]
 _CENTRAL = [_STATISTIC_INDEX[c] for c in CENTRAL_STATISTICS]
@@ -278,6 +278,12 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         )
         stat = np.full(count, _VALUE, dtype=np.int8)
     else:
+        fate.reject(  # the mode of a category trait is kept; of numbers, no column holds it
+            (stat == _MODE) & ~is_category,
+            RejectReason.INVALID_STATISTIC,
+            "the mode of a number trait is not one of the summaries kept (mean, median, sd, ...): "
+            "give the mean or median",
+        )
         # a number given as an individual's value has no place among population statistics
         fate.reject(
             (stat == _VALUE) & ~is_category,

@@ -27,10 +27,11 @@ from harmonize.errors import ConfigError
 FORMATS = ("csv", "tsv", "parquet", "dwca", "datapackage")  # the last two: harmonize.foreign
 LEVELS = ("individual", "population")
 LAYOUTS = ("wide", "long")
-# 'range' and 'iqr' are cells holding both bounds ('50-60'), read as min and max, q1 and q3
+# 'range' and 'iqr' are cells holding both bounds ('50-60'), read as min and max, q1 and q3;
+# 'mode' is the most common category of a population (a category trait's summary)
 STATISTICS = (
     "value", "mean", "sd", "se", "n", "min", "max", "median", "q1", "q3", "ci_low", "ci_high",
-    "variance", "cv", "range", "iqr",
+    "variance", "cv", "range", "iqr", "mode",
 )  # fmt: skip
 GROUP_CONTEXT = ("sex", "life_stage", "site", "date")  # sub-groups a population may be split by
 ROLES = ("parameter", "threshold", "structure", "estimation", "forcing", "descriptive")

@@ -28,6 +28,7 @@ STATISTIC_ALIASES = {
     "cv": "cv", "c.v.": "cv", "cv%": "cv", "coefficient of variation": "cv", "coef. var.": "cv",
     "range": "range", "min-max": "range", "min–max": "range", "spannweite": "range",
     "iqr": "iqr", "i.q.r.": "iqr", "interquartile range": "iqr",
+    "mode": "mode", "modal": "mode", "modus": "mode", "most common": "mode",
 }  # fmt: skip
 
 # a confidence level written into a bound's name: '95% CI low', 'lower 95 % CI', 'CI (90%) upper'

@@ -193,6 +193,22 @@ def test_plus_minus_after_a_mean(tmp_path: Path) -> None:
     assert frames["rejects"].empty
 
 
+def test_the_mode_summarises_a_category_not_a_number(tmp_path: Path) -> None:
+    # the most common category of a population is its summary (common practice, no source); a
+    # mode of numbers has no column in population_summaries and is rejected, not taken as a mean
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,thermoregulation,mode,endotherm,,10\n"
+        "Sorex minutus,f,body mass,Modus,4.6,g,10\n"
+    )
+    frames = built(project(tmp_path, table, LONG_POP))
+    out = frames["population_summaries"]
+    assert list(out["value_text"]) == ["endotherm"]
+    (reject,) = frames["rejects"].itertuples()
+    assert (reject.raw_value, reject.reason) == ("4.6", "invalid-statistic")
+    assert "mode of a number trait" in reject.message
+
+
 def test_sample_size_written_with_its_name(tmp_path: Path) -> None:
     # SD = SE * sqrt(n) (Cochrane Handbook 6.5.2.2): SE 1 g with 'n=9' is SD 3 g. An n cell
     # that is no count leaves n unknown, and the summary says why.

@@ -123,7 +123,7 @@ CASES = [
     ),
     Case(
         RejectReason.UNKNOWN_STATISTIC,
-        "species,trait,statistic,value,unit\nSorex minutus,body mass,mean,4.1,g\nSorex minutus,body mass,mode,4.0,g\n",
+        "species,trait,statistic,value,unit\nSorex minutus,body mass,mean,4.1,g\nSorex minutus,body mass,geometric mean,4.0,g\n",
         LONG_POP,
         2,
         "value",
