@@ -237,8 +237,9 @@ def combine_subgroups(summaries: pd.DataFrame, split_by: tuple[str, ...]) -> pd.
 
     n, mean and SD are pooled with the Cochrane Handbook (v6.4) Table 6.5.a formula (via
     `stats.combine_group_summaries`); a group missing n, mean or SD in any part gets no pooled
-    statistics rather than a guess. Other statistics (median, quartiles, CI) do not pool and are
-    dropped from the combined row; its provenance lists every part.
+    statistics rather than a guess. The range of the whole is the smallest minimum to the
+    largest maximum, where every part gives them. Other statistics (median, quartiles, CI) do
+    not pool and are dropped from the combined row; its provenance lists every part.
     """
     keep = [c for c in ("taxon_verbatim", "taxon", "taxon_qualifier", "sex", "life_stage", "site", "date",
                         "trait_id", "measurement_temperature") if c not in split_by]  # fmt: skip
@@ -264,12 +265,14 @@ def combine_subgroups(summaries: pd.DataFrame, split_by: tuple[str, ...]) -> pd.
     merged.loc[pooled, "sd_method"] = "combined groups"
     merged.loc[pooled, "mean_method"] = "combined groups"
     merged["se"] = np.where(pooled, merged["sd"] / np.sqrt(merged["n"].astype(float)), merged["se"])
+    for column in ("min", "max"):  # exact: the extremes of the parts' extremes
+        complete = parts[column].count().to_numpy() == sizes
+        extreme = parts[column].agg(column).to_numpy(dtype=float)
+        merged[column] = np.where(pooled, np.where(complete, extreme, np.nan), merged[column])
     for column in (
         "median",
         "q1",
         "q3",
-        "min",
-        "max",
         "ci_low",
         "ci_high",
         "ci_level",

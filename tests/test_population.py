@@ -313,22 +313,31 @@ def test_combined_sexes_equal_the_pooled_raw_data(tmp_path: Path, penguins: pd.D
     # per species and sex: n, mean, SD of body mass as a paper would report them
     by_sex = (
         penguins.groupby(["species", "sex"])["body_mass_g"]
-        .agg(["count", "mean", "std"])
+        .agg(["count", "mean", "std", "min", "max"])
         .reset_index()
     )
     rows = ["species,sex,trait,statistic,value,unit,n"]
     for r in by_sex.itertuples():
         rows.append(f"{r.species},{r.sex},body mass,mean,{r.mean!r},g,{r.count}")
         rows.append(f"{r.species},{r.sex},body mass,sd,{r.std!r},g,{r.count}")
+        rows.append(f"{r.species},{r.sex},body mass,min,{r.min!r},g,{r.count}")
+        if (r.species, r.sex) != ("Gentoo", "female"):  # one part without its maximum
+            rows.append(f"{r.species},{r.sex},body mass,max,{r.max!r},g,{r.count}")
     mapping = LONG_POP + "combine_groups: [sex]\n"
     out = summaries(project(tmp_path, "\n".join(rows) + "\n", mapping)).set_index("taxon_verbatim")
-    # Cochrane Handbook v6.4 Table 6.5.a, checked against the raw pooled data (palmerpenguins)
-    pooled = penguins.groupby("species")["body_mass_g"].agg(["count", "mean", "std"])
+    # Cochrane Handbook v6.4 Table 6.5.a, checked against the raw pooled data (palmerpenguins);
+    # the range of the whole is exact: smallest minimum to largest maximum
+    pooled = penguins.groupby("species")["body_mass_g"].agg(["count", "mean", "std", "min", "max"])
     for species, want in pooled.iterrows():
         got = out.loc[species]
         assert got["n"] == want["count"]
         assert got["mean"] == pytest.approx(want["mean"], rel=1e-9)
         assert got["sd"] == pytest.approx(want["std"], rel=1e-9)
+        assert got["min"] == want["min"]
+        if species == "Gentoo":
+            assert pd.isna(got["max"])  # a part did not give it: no guess
+        else:
+            assert got["max"] == want["max"]
         assert got["sd_method"] == "combined groups" and "combined-groups:sex" in got["flags"]
         assert pd.isna(got["sex"])
 
