@@ -100,6 +100,18 @@ def _rejects(cells: pd.DataFrame, reason: pd.Series, message: pd.Series) -> pd.D
     )
 
 
+def _two_statistics_note(cells: pd.DataFrame) -> pd.Series | str:
+    """For cells holding two statistics (a range's bounds, a mean '± x'): which, since the
+    first of them may be what another cell gives too."""
+    if "second_statistic" not in cells.columns:
+        return ""
+    second = cells["second_statistic"]
+    note = (
+        " (this cell gives " + cells["statistic"].astype(str) + " and " + second.astype(str) + ")"
+    )
+    return note.where(second.notna(), "")
+
+
 def _with_second_statistics(
     wide: pd.DataFrame, numbers: pd.DataFrame
 ) -> tuple[pd.DataFrame, pd.Series]:
@@ -138,7 +150,8 @@ def summarise_population_cells(cells: pd.DataFrame, mapping: Mapping) -> Summary
             pd.Series(RejectReason.DUPLICATE_STATISTIC.value, index=cells.index[duplicate]),
             "statistic '"
             + cells.loc[duplicate, "statistic"].astype(str)
-            + "' given twice for this population and trait",
+            + "' given twice for this population and trait"
+            + _two_statistics_note(cells.loc[duplicate]),
         )
     ]
     cells = cells[~duplicate]

@@ -167,6 +167,22 @@ def test_cells_holding_two_statistics(tmp_path: Path) -> None:
     assert "is a width" in reject.message
 
 
+def test_a_range_cell_clashing_with_a_min_cell_says_what_it_holds(tmp_path: Path) -> None:
+    # the first cell wins (as for any statistic given twice); the rejected range cell's message
+    # says it held min and max, since its own statistic was 'range'
+    table = (
+        "species,sex,trait,statistic,value,unit,n\n"
+        "Sorex minutus,f,body mass,min,3.9,g,10\n"
+        "Sorex minutus,f,body mass,range,4.0-5.0,g,10\n"
+        "Sorex minutus,f,body mass,mean,4.5,g,10\n"
+    )
+    frames = built(project(tmp_path, table, LONG_POP))
+    (reject,) = frames["rejects"].itertuples()
+    assert (reject.raw_value, reject.reason) == ("4.0-5.0", "duplicate-statistic")
+    assert reject.message.endswith("(this cell gives min and max)")
+    assert frames["population_summaries"]["min"].tolist() == [3.9]
+
+
 def test_plus_minus_after_a_mean(tmp_path: Path) -> None:
     # '98.6 ± 1.8' in degF with plus_minus: sd is a mean of 37 degC and an SD of 1 degC: the SD
     # takes the scale 5/9 and no offset (NIST SP 811 (2008), B.9). Without plus_minus the mean
