@@ -178,7 +178,7 @@ INDIVIDUAL_VALUES = Resource(
         Column(
             "value",
             "number",
-            "Value in the canonical unit (empty for categories); temperature-corrected where temperature_correction says so.",
+            "Value in the canonical unit (empty for categories; a converted value is rounded to 15 significant digits); temperature-corrected where temperature_correction says so.",
         ),
         Column(
             "value_as_measured",
