@@ -45,6 +45,13 @@ def built(root: Path) -> dict[str, pd.DataFrame]:
     return frames
 
 
+def built_with_one_reject(root: Path, table: str) -> tuple[dict[str, pd.DataFrame], tuple]:
+    """A long population table's tables, and the one cell it rejects."""
+    frames = built(project(root, table, LONG_POP))
+    (reject,) = frames["rejects"].itertuples()
+    return frames, reject
+
+
 def summaries(root: Path) -> pd.DataFrame:
     return built(root)["population_summaries"]
 
@@ -176,8 +183,7 @@ def test_a_range_cell_clashing_with_a_min_cell_says_what_it_holds(tmp_path: Path
         "Sorex minutus,f,body mass,range,4.0-5.0,g,10\n"
         "Sorex minutus,f,body mass,mean,4.5,g,10\n"
     )
-    frames = built(project(tmp_path, table, LONG_POP))
-    (reject,) = frames["rejects"].itertuples()
+    frames, reject = built_with_one_reject(tmp_path, table)
     assert (reject.raw_value, reject.reason) == ("4.0-5.0", "duplicate-statistic")
     assert reject.message.endswith("(this cell gives min and max)")
     assert frames["population_summaries"]["min"].tolist() == [3.9]
@@ -217,10 +223,8 @@ def test_the_mode_summarises_a_category_not_a_number(tmp_path: Path) -> None:
         "Sorex minutus,f,thermoregulation,mode,endotherm,,10\n"
         "Sorex minutus,f,body mass,Modus,4.6,g,10\n"
     )
-    frames = built(project(tmp_path, table, LONG_POP))
-    out = frames["population_summaries"]
-    assert list(out["value_text"]) == ["endotherm"]
-    (reject,) = frames["rejects"].itertuples()
+    frames, reject = built_with_one_reject(tmp_path, table)
+    assert list(frames["population_summaries"]["value_text"]) == ["endotherm"]
     assert (reject.raw_value, reject.reason) == ("4.6", "invalid-statistic")
     assert "mode of a number trait" in reject.message
 
