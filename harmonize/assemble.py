@@ -383,29 +383,14 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
     scale, zero, conversion_flags = by_pair.scale, by_pair.zero, by_pair.flags
     fate.reject(pd.notna(by_pair.reason), by_pair.reason, by_pair.message)
 
-    # 9. converted numbers: locations affine, SD/SE by |scale|, variance by scale**2 (never an
-    # offset: a spread of temperatures has none), CV by its own unit only, n as is
+    # 9. converted numbers (CV by its own unit only: its scale came from %, a fraction or none)
     is_n = stat == _N
     is_variance = stat == _VARIANCE
-    converted = np.select(
-        [is_n, np.isin(stat, _SPREAD), is_variance],
-        [number, number * np.abs(scale), number * scale**2],
-        (number - zero) * scale + 0.0,  # + 0.0: -0 becomes 0 (IEEE 754-2019, 6.3)
-    )
-    has_second = two.second_stat >= 0
+    converted = _in_canonical_unit(number, stat, scale, zero)
+    has_second = two.second_stat >= 0  # a second statistic: a location (max, q3) or sd, se
     second = np.full(count, np.nan)
-    if has_second.any():  # a second statistic is a location (max, q3) or a spread (sd, se)
-        second = np.where(
-            np.isin(two.second_stat, _SPREAD),
-            two.second_number * np.abs(scale),
-            (two.second_number - zero) * scale + 0.0,
-        )
-    # binary noise of the conversion dropped past a double's 15 digits (7100 mg: 7.1 g)
-    moved = np.flatnonzero(((scale != 1.0) | (zero != 0.0)) & ~is_n)
-    if len(moved):
-        converted[moved] = units.digits_of_a_double(converted[moved])
-        if has_second.any():
-            second[moved] = units.digits_of_a_double(second[moved])
+    if has_second.any():
+        second = _in_canonical_unit(two.second_number, two.second_stat, scale, zero)
 
     # 10. temperature of measurement, in degC
     temperature, temperature_reason = cell_units.measurement_temperature(cells, plan.mapping)
@@ -493,7 +478,7 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         columns["second_statistic"] = np.where(
             has_second, _STATISTIC_ARRAY[np.maximum(two.second_stat, 0)], None
         )
-        columns["second_value"] = np.where(has_second, second, np.nan)
+        columns["second_value"] = second  # NaN where none
         columns["n_raw"] = cells["n_raw"]
         statistic_cells = rows_frame(written, columns)
     return BatchResult(
@@ -502,6 +487,24 @@ def assemble_batch(cells: pd.DataFrame, plan: SourcePlan) -> BatchResult:
         rejects=fate.rejected(),
         empty=int(empty.sum()),
     )
+
+
+def _in_canonical_unit(
+    number: np.ndarray, stat: np.ndarray, scale: np.ndarray, zero: np.ndarray
+) -> np.ndarray:
+    """Numbers of the statistics `stat` in the canonical unit: locations as (number - zero) *
+    scale, SD and SE by |scale|, a variance by scale**2 (a spread has no offset), n as is;
+    rounded to a double's 15 digits where converted (7100 mg: 7.1 g, not 7.1000000000000005)."""
+    is_n = stat == _N
+    converted = np.select(
+        [is_n, np.isin(stat, _SPREAD), stat == _VARIANCE],
+        [number, number * np.abs(scale), number * scale**2],
+        (number - zero) * scale + 0.0,  # + 0.0: -0 becomes 0 (IEEE 754-2019, 6.3)
+    )
+    moved = np.flatnonzero(((scale != 1.0) | (zero != 0.0)) & ~is_n)
+    if len(moved):
+        converted[moved] = units.digits_of_a_double(converted[moved])
+    return converted
 
 
 def _cleaned_taxa(texts: np.ndarray, plan: SourcePlan) -> tuple[np.ndarray, np.ndarray]:

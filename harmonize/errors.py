@@ -35,8 +35,8 @@ class HarmonizeError(Exception):
 
     def __str__(self) -> str:
         where = []
-        if self.file:
-            where.append(str(self.file))
+        if self.file:  # the other parts were made one line in __init__
+            where.append(_one_line(str(self.file)))
         if self.row is not None:  # data rows count from 1; row 0 is the header
             where.append(f"row {self.row}" if self.row else "header row")
         if self.column:
@@ -44,7 +44,7 @@ class HarmonizeError(Exception):
         text = ": ".join([", ".join(where), self.message]) if where else self.message
         if self.hint:
             text += f" ({self.hint})"
-        return _one_line(text)
+        return text
 
     def __reduce__(self):  # keep structured fields when pickled (e.g. across Dask workers)
         return (

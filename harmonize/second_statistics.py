@@ -56,7 +56,8 @@ def split_cells(
         here = numeric & (stat == index[two_part])
         if not here.any():  # most sources: no compare of reasons (objects) cell by cell
             continue
-        both = here & np.asarray(parsed.reason == RejectReason.RANGE_VALUE, dtype=bool)
+        both = here.copy()  # reasons are objects: compared only where needed
+        both[here] = np.asarray(parsed.reason[here] == RejectReason.RANGE_VALUE, dtype=bool)
         one_number[here & ~both & np.isfinite(parsed.value)] = two_part
         bounds_read |= both
         number[both], second_number[both] = parsed.low[both], parsed.high[both]

@@ -100,11 +100,9 @@ def _rejects(cells: pd.DataFrame, reason: pd.Series, message: pd.Series) -> pd.D
     )
 
 
-def _two_statistics_note(cells: pd.DataFrame) -> pd.Series | str:
+def _two_statistics_note(cells: pd.DataFrame) -> pd.Series:
     """For cells holding two statistics (a range's bounds, a mean '± x'): which, since the
     first of them may be what another cell gives too."""
-    if "second_statistic" not in cells.columns:
-        return ""
     second = cells["second_statistic"]
     note = (
         " (this cell gives " + cells["statistic"].astype(str) + " and " + second.astype(str) + ")"
@@ -118,8 +116,6 @@ def _with_second_statistics(
     """The statistics of each population with the second statistics its cells carry (the max
     of a 'range' cell, the SD after '±'), and per population whether one of them was dropped
     because the population also gives that statistic in a cell of its own (which is used)."""
-    if "second_statistic" not in numbers.columns:
-        return wide, pd.Series(False, index=wide.index)
     seconds = numbers[numbers["second_statistic"].notna()]
     if seconds.empty:
         return wide, pd.Series(False, index=wide.index)
